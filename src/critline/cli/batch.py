@@ -1,0 +1,1 @@
+"""`critline batch` command (being written; see the issue tracker)."""

@@ -1,0 +1,1 @@
+"""`critline calibrate` command (being written; see the issue tracker)."""

@@ -1,0 +1,1 @@
+"""`critline identify` command (being written; see the issue tracker)."""

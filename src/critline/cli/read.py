@@ -1,0 +1,1 @@
+"""`critline read` command (being written; see the issue tracker)."""

@@ -1,0 +1,1 @@
+"""`critline synth` command (being written; see the issue tracker)."""

@@ -1,0 +1,45 @@
+"""Safe file writing: atomic replace, and never overwrite unless told."""
+
+from __future__ import annotations
+
+import os
+import tempfile
+from pathlib import Path
+
+from critline.errors import UsageError
+
+
+def atomic_write_bytes(path: str | Path, data: bytes, overwrite: bool = True) -> Path:
+    """Write ``data`` to ``path`` through a temporary file and a rename.
+
+    A reader never sees a half-written file; a crash leaves the old file (or
+    none).  With ``overwrite=False`` an existing file is an error.
+    """
+    path = Path(path)
+    if not overwrite and path.exists():
+        raise UsageError(f"{path}: already exists (refusing to overwrite; pass the overwrite option)")
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
+            fh.flush()
+            os.fsync(fh.fileno())
+        if not overwrite:
+            # link() fails if the target appeared meanwhile: no race overwrites a file
+            try:
+                os.link(tmp, path)
+            except FileExistsError:
+                raise UsageError(f"{path}: already exists (refusing to overwrite)") from None
+            os.unlink(tmp)
+        else:
+            os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise
+    return path
+
+
+def atomic_write_text(path: str | Path, text: str, overwrite: bool = True) -> Path:
+    return atomic_write_bytes(path, text.encode("utf-8"), overwrite=overwrite)
