@@ -41,11 +41,11 @@ def debug_enabled() -> bool:
 
 
 # Command modules register themselves on ``app`` when imported.
-from critline.cli import identify as _identify  # noqa: E402,F401
-from critline.cli import synth as _synth  # noqa: E402,F401
-from critline.cli import read as _read  # noqa: E402,F401
-from critline.cli import calibrate as _calibrate  # noqa: E402,F401
 from critline.cli import batch as _batch  # noqa: E402,F401
+from critline.cli import calibrate as _calibrate  # noqa: E402,F401
+from critline.cli import identify as _identify  # noqa: E402,F401
+from critline.cli import read as _read  # noqa: E402,F401
+from critline.cli import synth as _synth  # noqa: E402,F401
 
 
 def main(argv: list[str] | None = None) -> int:
