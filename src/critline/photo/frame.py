@@ -1,0 +1,141 @@
+"""Axis direction of the scale, and the field resampled into the scale's own frame.
+
+Method
+------
+The graduations are parallel dark lines and the shadow edge runs parallel to
+them, so inside the field the image gradients point along the scale axis.
+The dominant gradient orientation is taken from the structure tensor summed
+over the field interior (doubled-angle average; Bigun and Granlund 1987,
+Jahne, *Digital Image Processing*, ch. 13).  The field stop's own rim is
+excluded because its gradients point every way.  The field is then resampled
+(``cv2.warpAffine``) so that the scale axis runs down the rows: row ``i`` is
+the position ``u = i - half`` along the axis from the field centre, column
+``j`` the position ``v = j - half`` across it.  The 180-degree ambiguity of
+the orientation is resolved later, from the physics (see
+:mod:`critline.photo.graduations`).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import cv2
+import numpy as np
+
+from critline.photo.load import srgb_to_linear
+
+
+@dataclass(frozen=True)
+class AxisEstimate:
+    """Direction of the scale axis in the working image.
+
+    angle : radians, direction of increasing ``u`` measured from the image x axis
+        toward the image y axis (mod pi until resolved).
+    coherence : 0..1, how strongly one orientation dominates.
+    """
+
+    angle: float
+    coherence: float
+
+
+@dataclass(frozen=True)
+class FieldFrame:
+    """The field resampled with the scale axis along the rows.
+
+    Attributes
+    ----------
+    grey : ndarray (n, n) float32
+        Stored (non-linear) luma, for finding the graduations.
+    linear : ndarray (n, n, 3) float32
+        Linear-light RGB, for brightness profiles.
+    inside : ndarray (n, n) bool
+        Pixels inside the field stop and inside the photo frame.
+    angle, cx, cy, half, reduce :
+        The resampling: working-image point of frame pixel (i, j) is
+        ``(cx, cy) + (i - half) * (cos a, sin a) + (j - half) * (-sin a, cos a)``;
+        the working image is the photo at 1/``reduce`` size.
+    """
+
+    grey: np.ndarray
+    linear: np.ndarray
+    inside: np.ndarray
+    angle: float
+    cx: float
+    cy: float
+    half: int
+    reduce: int
+    radius: float
+
+    def to_photo(self, i, j):
+        """Full-size photo (x, y) of frame coordinates (row i, column j)."""
+        u = np.asarray(i, float) - self.half
+        v = np.asarray(j, float) - self.half
+        c, s = np.cos(self.angle), np.sin(self.angle)
+        x = self.cx + u * c - v * s
+        y = self.cy + u * s + v * c
+        r = self.reduce
+        return x * r + (r - 1) / 2, y * r + (r - 1) / 2
+
+    def flipped(self) -> FieldFrame:
+        """The same frame with the axis direction reversed (u -> -u, v -> -v)."""
+        return FieldFrame(self.grey[::-1, ::-1], self.linear[::-1, ::-1], self.inside[::-1, ::-1],
+                          self.angle + np.pi, self.cx, self.cy, self.half, self.reduce, self.radius)
+
+
+def axis_angle(grey: np.ndarray, cx: float, cy: float, r: float) -> AxisEstimate:
+    """Dominant gradient orientation inside the field (structure tensor).
+
+    Parameters
+    ----------
+    grey : ndarray float32
+        Working image luma.
+    cx, cy, r : float
+        Field circle in working pixels.
+    """
+    h, w = grey.shape
+    x0, x1 = max(0, int(cx - r)), min(w, int(cx + r) + 1)
+    y0, y1 = max(0, int(cy - r)), min(h, int(cy + r) + 1)
+    crop = grey[y0:y1, x0:x1]
+    sigma = max(1.0, r / 300)
+    sm = cv2.GaussianBlur(crop, (0, 0), sigma)
+    gx = cv2.Sobel(sm, cv2.CV_32F, 1, 0, ksize=3)
+    gy = cv2.Sobel(sm, cv2.CV_32F, 0, 1, ksize=3)
+    yy, xx = np.ogrid[y0:y1, x0:x1]
+    inner = ((xx - cx) ** 2 + (yy - cy) ** 2) < (0.85 * r) ** 2
+    jxx = float(np.sum(gx * gx, where=inner))
+    jyy = float(np.sum(gy * gy, where=inner))
+    jxy = float(np.sum(gx * gy, where=inner))
+    angle = 0.5 * np.arctan2(2 * jxy, jxx - jyy)
+    coherence = float(np.hypot(jxx - jyy, 2 * jxy) / max(jxx + jyy, 1e-12))
+    return AxisEstimate(float(angle), coherence)
+
+
+def make_frame(rgb: np.ndarray, cx: float, cy: float, r: float, angle: float, reduce: int) -> FieldFrame:
+    """Resample the field so the scale axis runs down the rows.
+
+    Parameters
+    ----------
+    rgb : ndarray (H, W, 3) float32
+        Working image, stored (sRGB-encoded) values 0..1.
+    cx, cy, r : float
+        Field circle in working pixels.
+    angle : float
+        Axis direction (radians).
+    reduce : int
+        Reduction factor of the working image relative to the photo.
+    """
+    half = int(np.ceil(r)) + 2
+    n = 2 * half + 1
+    c, s = np.cos(angle), np.sin(angle)
+    # output (col j, row i) -> input (x, y): x = cx + (i-half) c - (j-half) s, y = cy + (i-half) s + (j-half) c
+    m = np.array([[-s, c, cx - half * c + half * s],
+                  [c, s, cy - half * s - half * c]], dtype=np.float64)
+    warped = cv2.warpAffine(rgb, m, (n, n), flags=cv2.INTER_LINEAR | cv2.WARP_INVERSE_MAP,
+                            borderMode=cv2.BORDER_CONSTANT, borderValue=(np.nan, np.nan, np.nan))
+    valid = np.isfinite(warped[..., 0])
+    warped = np.nan_to_num(warped, nan=0.0)
+    grey = (0.299 * warped[..., 0] + 0.587 * warped[..., 1] + 0.114 * warped[..., 2]).astype(np.float32)
+    ii, jj = np.ogrid[0:n, 0:n]
+    inside = valid & (((ii - half) ** 2 + (jj - half) ** 2) < (0.97 * r) ** 2)
+    linear = srgb_to_linear(warped)
+    return FieldFrame(grey, linear, inside, float(angle), float(cx), float(cy), half, reduce, float(r))

