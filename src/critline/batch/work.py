@@ -1,0 +1,169 @@
+"""Reading many photos on all cores.
+
+Photos are read in worker processes (:class:`concurrent.futures.ProcessPoolExecutor`
+with the ``forkserver`` start method, the reader preloaded once), handed out in
+small chunks so that a slow photo does not hold back a whole share of the work.
+One worker means reading in this process, which is also what the benchmark
+compares against.  A reader that raises, or a worker that dies, turns into a
+``rejected`` reading with the reason: a batch always goes on past a bad file.
+"""
+
+from __future__ import annotations
+
+import math
+import multiprocessing
+import os
+from collections.abc import Callable, Sequence
+from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from concurrent.futures.process import BrokenProcessPool
+from dataclasses import dataclass, replace
+from pathlib import Path
+
+from critline.batch.grouping import IMAGE_SUFFIXES
+from critline.errors import CritlineError
+from critline.readings import PhotoReading, rejected
+
+Reader = Callable[..., PhotoReading]
+
+
+@dataclass(frozen=True)
+class ReadTask:
+    """One photo to read: where it is, the name to report, its hash, where its overlay goes."""
+
+    path: str
+    display: str
+    sha256: str
+    overlay_dir: str | None = None
+
+
+def default_reader() -> Reader:
+    """:func:`critline.photo.read_photo`, or a clear error when this build lacks it."""
+    try:
+        from critline.photo import read_photo
+    except ImportError as exc:
+        raise CritlineError(f"the photo reader is not available ({exc})") from None
+    return read_photo
+
+
+def find_overlay(overlay_dir: str | Path | None) -> str | None:
+    """The marked-up photo the reader left in ``overlay_dir`` (first image file), if any."""
+    if overlay_dir is None:
+        return None
+    folder = Path(overlay_dir)
+    try:
+        names = sorted(p for p in folder.iterdir() if p.suffix.lower() in IMAGE_SUFFIXES)
+    except OSError:
+        return None
+    return str(names[0]) if names else None
+
+
+def read_one(task: ReadTask, reader: Reader, instrument, calibration) -> tuple[PhotoReading, str | None]:
+    """Read one photo; never raises for a bad photo or a failing reader."""
+    try:
+        if task.overlay_dir is not None:
+            Path(task.overlay_dir).mkdir(parents=True, exist_ok=True)
+        reading = reader(Path(task.path), instrument, calibration, task.overlay_dir)
+        if not isinstance(reading, PhotoReading):
+            raise TypeError(f"reader returned {type(reading).__name__}, not a PhotoReading")
+    except MemoryError:
+        reading = rejected(task.display, task.sha256, "not enough memory to read this photo")
+    except Exception as exc:  # the batch goes on; the reason is kept in one line
+        text = " ".join(str(exc).split()) or type(exc).__name__
+        reading = rejected(task.display, task.sha256, f"could not be read ({type(exc).__name__}: {text})")
+    reading = replace(reading, photo=task.display, sha256=task.sha256)
+    overlay = find_overlay(task.overlay_dir) if reading.status != "rejected" else None
+    return reading, overlay
+
+
+# --- worker process side -------------------------------------------------------------------
+_worker_state: dict = {}
+
+
+def _init_worker(reader: Reader, instrument, calibration) -> None:
+    _worker_state.update(reader=reader, instrument=instrument, calibration=calibration)
+    # one thread per worker: the processes are the parallelism
+    try:
+        import cv2
+
+        cv2.setNumThreads(1)
+    except Exception:  # noqa: BLE001 - OpenCV is optional for fakes in tests
+        pass
+
+
+def _read_chunk(tasks: list[ReadTask]) -> list[tuple[PhotoReading, str | None]]:
+    s = _worker_state
+    return [read_one(t, s["reader"], s["instrument"], s["calibration"]) for t in tasks]
+
+
+def default_workers() -> int:
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):
+        return max(1, os.cpu_count() or 1)
+
+
+def chunk_size(n_tasks: int, workers: int) -> int:
+    """Small chunks (about four per worker, at most 8 photos) for an even spread."""
+    return max(1, min(8, math.ceil(n_tasks / max(1, workers * 4))))
+
+
+def _context():
+    methods = multiprocessing.get_all_start_methods()
+    if "forkserver" in methods:
+        ctx = multiprocessing.get_context("forkserver")
+        ctx.set_forkserver_preload(["critline.batch.work", "critline.photo"])
+        return ctx
+    return multiprocessing.get_context("spawn")
+
+
+def read_many(tasks: Sequence[ReadTask], *, reader: Reader, instrument=None, calibration=None,
+              workers: int | None = None,
+              on_result: Callable[[ReadTask, PhotoReading, str | None], None] | None = None,
+              ) -> list[tuple[PhotoReading, str | None]]:
+    """Read ``tasks`` with ``workers`` processes; results in task order.
+
+    ``on_result`` is called in this process for every finished photo (progress,
+    cache writes) as soon as its chunk is back.
+    """
+    tasks = list(tasks)
+    workers = default_workers() if workers is None else int(workers)
+    if workers < 1:
+        raise CritlineError(f"workers must be at least 1 (got {workers})")
+    results: list[tuple[PhotoReading, str | None] | None] = [None] * len(tasks)
+
+    def done(i, res):
+        results[i] = res
+        if on_result is not None:
+            on_result(tasks[i], *res)
+
+    if workers == 1 or len(tasks) <= 1:
+        for i, t in enumerate(tasks):
+            done(i, read_one(t, reader, instrument, calibration))
+        return results  # type: ignore[return-value]
+
+    size = chunk_size(len(tasks), workers)
+    chunks = [list(range(i, min(i + size, len(tasks)))) for i in range(0, len(tasks), size)]
+    with ProcessPoolExecutor(max_workers=min(workers, len(chunks)), mp_context=_context(),
+                             initializer=_init_worker,
+                             initargs=(reader, instrument, calibration)) as pool:
+        pending = {pool.submit(_read_chunk, [tasks[i] for i in idx]): idx for idx in chunks}
+        while pending:
+            finished, _ = wait(pending, return_when=FIRST_COMPLETED)
+            for fut in finished:
+                idx = pending.pop(fut)
+                try:
+                    chunk_results = fut.result()
+                except BrokenProcessPool:
+                    chunk_results = _all_rejected(
+                        tasks, idx, "the reading process stopped while this photo was in its "
+                        "share (crash or out of memory)")
+                except Exception as exc:  # e.g. a result that cannot travel between processes
+                    chunk_results = _all_rejected(
+                        tasks, idx, f"could not be read ({type(exc).__name__}: {exc})")
+                for i, res in zip(idx, chunk_results, strict=True):
+                    done(i, res)
+    return results  # type: ignore[return-value]
+
+
+def _all_rejected(tasks, idx, reason):
+    return [(rejected(tasks[i].display, tasks[i].sha256, reason), None) for i in idx]

@@ -1,0 +1,75 @@
+"""The batch as one CSV table: one ``stone`` row per stone, then one ``reading`` row per photo.
+
+Both kinds of row share the columns; a column that does not apply to a row is
+empty.  RI values have four decimals.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+
+from critline.report.document import r4
+
+COLUMNS = (
+    "row", "stone", "photo", "rotation", "polariser", "status",
+    "ri_low", "ri_high", "birefringence", "uncertainty", "optic_character", "optic_sign",
+    "over_limit", "leading_candidate", "score", "edge_1", "edge_1_uncertainty",
+    "edge_2", "edge_2_uncertainty", "liquid_edge", "light", "flags", "reason",
+)
+
+
+def _fmt(x) -> str:
+    if x is None:
+        return ""
+    if isinstance(x, bool):
+        return "yes" if x else "no"
+    if isinstance(x, float):
+        return f"{x:.4f}"
+    return str(x)
+
+
+def batch_rows(result) -> list[dict]:
+    rows = []
+    for stone in result.stones:
+        a, ident = stone.analysis, stone.identification
+        lead = tuple(ident.candidates)[0] if ident is not None and ident.candidates else None
+        rows.append({
+            "row": "stone", "stone": stone.name, "photo": f"{len(stone.usable)}/{len(stone.photos)} used",
+            "ri_low": r4(getattr(a, "ri_low", None)), "ri_high": r4(getattr(a, "ri_high", None)),
+            "birefringence": r4(getattr(a, "birefringence", None)),
+            "uncertainty": r4(getattr(a, "uncertainty", None)),
+            "optic_character": getattr(a, "optic_character", None) or "undetermined",
+            "optic_sign": getattr(a, "optic_sign", None) or "",
+            "over_limit": bool(getattr(a, "over_limit", False)),
+            "leading_candidate": getattr(lead, "material", ""),
+            "score": None if lead is None else f"{float(lead.score):.3f}",
+            "flags": " ".join(getattr(a, "flags", ()) or ()),
+        })
+        for p in stone.photos:
+            r = p.reading
+            stone_edges = sorted(r.stone_edges, key=lambda e: e.ri)
+            liquid = [e for e in r.edges if e.kind == "liquid"]
+            row = {
+                "row": "reading", "stone": stone.name, "photo": p.item.display,
+                "rotation": None if p.item.rotation is None else f"{p.item.rotation:g}",
+                "polariser": p.item.polariser_setting,
+                "status": r.status, "light": r.light,
+                "flags": " ".join(r.quality.flags), "reason": r.reason or "",
+                "liquid_edge": r4(liquid[0].ri) if liquid else None,
+            }
+            for k, e in enumerate(stone_edges[:2], start=1):
+                row[f"edge_{k}"] = r4(e.ri)
+                row[f"edge_{k}_uncertainty"] = r4(e.uncertainty)
+            rows.append(row)
+    return rows
+
+
+def batch_csv(result) -> str:
+    """CSV text of a :class:`critline.batch.BatchResult`."""
+    buf = io.StringIO()
+    writer = csv.DictWriter(buf, fieldnames=COLUMNS, lineterminator="\n")
+    writer.writeheader()
+    for row in batch_rows(result):
+        writer.writerow({k: _fmt(row.get(k)) for k in COLUMNS})
+    return buf.getvalue()
