@@ -117,6 +117,8 @@ def find_previous(path: str | Path, before: str | None = None, skip: Path | None
         from datetime import datetime
 
         limit = datetime.fromisoformat(before)
+        if limit.tzinfo is None:
+            limit = limit.astimezone()
     best = None
     for f in sorted(path.glob("*.toml")):
         if skip is not None and f.resolve() == skip.resolve():

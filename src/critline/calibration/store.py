@@ -10,7 +10,7 @@ from __future__ import annotations
 import json
 import math
 import tomllib
-from datetime import datetime
+from datetime import UTC, datetime
 from pathlib import Path
 
 from critline.calibration.fitting import CalibrationError, PolynomialMap
@@ -220,6 +220,7 @@ def load_calibration(path: str | Path) -> Calibration:
 
 def created_time(cal: Calibration) -> datetime | None:
     try:
-        return datetime.fromisoformat(cal.created)
+        t = datetime.fromisoformat(cal.created)
     except ValueError:
         return None
+    return t if t.tzinfo is not None else t.replace(tzinfo=UTC)
