@@ -47,6 +47,8 @@ table{border-collapse:collapse;width:100%;font-size:14px}
 th{text-align:left;font-weight:600;color:var(--muted);border-bottom:1px solid var(--rule);padding:4px 8px}
 td{border-bottom:1px solid var(--rule);padding:4px 8px;vertical-align:top;overflow-wrap:anywhere}
 td.num{font-variant-numeric:tabular-nums;white-space:nowrap}
+table.readings td:first-child{min-width:12em}
+table.readings td.status{white-space:nowrap}
 .glance a{color:var(--low)}
 article.stone{background:var(--card);margin:26px 0;padding:18px 22px;border-radius:2px;
 box-shadow:0 1px 0 var(--rule)}
@@ -269,7 +271,7 @@ def _readings_table(stone) -> str:
         rows.append(
             f'<tr class="status-{_e(r.status)}"><td>{_e(p.item.display)}</td>'
             f'<td class="num">{_e(_deg(p.item.rotation))}</td><td>{_e(p.item.polariser_setting)}</td>'
-            f'<td>{_e(r.status)}</td><td class="num">{_e(edges) or "—"}</td>'
+            f'<td class="status">{_e(r.status)}</td><td class="num">{_e(edges) or "—"}</td>'
             f'<td class="num">{_e(liquid) or "—"}</td><td>{_e(detail)}</td></tr>')
     return ("<table class=\"readings\"><thead><tr><th>photo</th><th>rotation</th><th>polariser</th>"
             "<th>status</th><th>stone edges (RI)</th><th>liquid</th><th>flags / reason</th></tr></thead>"

@@ -179,7 +179,7 @@ def profile_plot(positions, brightness, edges, *, window=3.0, width=270, height=
     pts = " ".join(f"{f.x(x):.1f},{f.y(y):.1f}" for x, y in sel)
     body.append(f'<polyline points="{pts}" fill="none" stroke="{INK}" stroke-width="1.3"/>')
     stones = sorted((m for m in marks if m[2] == "stone"), key=lambda m: m[1])
-    for pos, ri, kind in marks:
+    for k, (pos, ri, kind) in enumerate(sorted(marks, key=lambda m: m[0])):
         if kind == "liquid":
             colour, dash = LIQUID, ' stroke-dasharray="3 3"'
         else:
@@ -188,6 +188,10 @@ def profile_plot(positions, brightness, edges, *, window=3.0, width=270, height=
         xx = f.x(pos)
         body.append(f'<line x1="{xx:.1f}" x2="{xx:.1f}" y1="{f.top}" y2="{height - f.bottom}" '
                     f'stroke="{colour}" stroke-width="1.4"{dash}/>')
-        body.append(f'<text x="{xx + 3:.1f}" y="{f.top + 9}" font-size="9.5" fill="{colour}">'
+        # labels alternate between two rows so that close edges stay readable; near the
+        # right border the label goes to the left of its line
+        right = xx > width - f.right - 38
+        body.append(f'<text x="{xx - 3 if right else xx + 3:.1f}" y="{f.top + 9 + 11 * (k % 2)}" '
+                    f'font-size="9.5" fill="{colour}" text-anchor="{"end" if right else "start"}">'
                     f'{escape(f"{ri:.4f}")}</text>')
     return _svg(width, height, body, title, "plot profile-plot")
