@@ -40,8 +40,11 @@ def default_reader() -> Reader:
     """:func:`critline.photo.read_photo`, or a clear error when this build lacks it."""
     try:
         from critline.photo import read_photo
-    except ImportError as exc:
-        raise CritlineError(f"the photo reader is not available ({exc})") from None
+    except ImportError:
+        try:
+            from critline.photo.reading import read_photo
+        except ImportError as exc:
+            raise CritlineError(f"the photo reader is not available ({exc})") from None
     return read_photo
 
 

@@ -1,0 +1,81 @@
+"""`critline batch` / `critline watch` as a user meets them: help, usage errors, JSON on stdout, exit codes."""
+
+import json
+
+import pytest
+from batchfakes import fake_reader, write_fake_photo
+
+from critline import cautions
+from critline.batch import run as batch_run
+from critline.batch import watch as batch_watch
+from critline.cli import main
+
+
+@pytest.fixture
+def fake_reader_everywhere(monkeypatch, fake_core):
+    monkeypatch.setattr(batch_run, "default_reader", lambda: fake_reader)
+    monkeypatch.setattr(batch_watch, "default_reader", lambda: fake_reader)
+
+
+@pytest.mark.parametrize("command", ["batch", "watch"])
+def test_help_shows_the_cautions(command, capsys):
+    assert main([command, "--help"]) == 0
+    text = " ".join(capsys.readouterr().out.split())
+    assert "A reading is evidence, not a verdict" in text
+    assert "diiodomethane" in text
+
+
+def test_usage_errors_exit_2_in_one_line(tmp_path, capsys):
+    assert main(["batch", str(tmp_path / "missing"), "--out", str(tmp_path / "o")]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "missing" in err[0] and "Traceback" not in err[0]
+    m = tmp_path / "m.csv"
+    m.write_text("stone,photo\nx,../../etc/passwd.jpg\n")
+    assert main(["batch", str(m), "--out", str(tmp_path / "o")]) == 2
+    assert "climbs out" in capsys.readouterr().err
+    assert main(["batch", str(tmp_path), "--workers", "0"]) == 2
+    bad_inst = tmp_path / "inst.toml"
+    bad_inst.write_text("first = 'x'\nfrobnicate = 1\n")
+    assert main(["batch", str(tmp_path), "--instrument", str(bad_inst)]) == 2
+    assert "inst.toml" in capsys.readouterr().err
+
+
+def test_json_is_one_document_and_problems_go_to_stderr(tmp_path, capsys, fake_reader_everywhere):
+    parcel = tmp_path / "parcel"
+    write_fake_photo(parcel / "oval" / "r000_pol0.png", [1.5442])
+    write_fake_photo(parcel / "oval" / "r000_pol90.png", [1.5532])
+    (parcel / "oval" / "broken.jpg").write_bytes(b"nope")
+    out = tmp_path / "out"
+    code = main(["batch", str(parcel), "--out", str(out), "--json", "--workers", "1"])
+    captured = capsys.readouterr()
+    assert code == 3
+    doc = json.loads(captured.out)  # exactly one JSON document, nothing else on stdout
+    assert doc["schema"] == "critline.batch/1"
+    stone = doc["stones"][0]
+    assert {"stone", "photos", "ri_low", "ri_high", "birefringence", "uncertainty", "optic_character",
+            "optic_sign", "over_limit", "candidates", "flags"} <= set(stone)
+    assert stone["ri_low"] == 1.5442 and stone["birefringence"] == 0.009
+    assert doc["cautions"] == list(cautions.ALL)
+    err_lines = [x for x in captured.err.splitlines() if "broken.jpg" in x]
+    assert err_lines == ["critline: oval/broken.jpg: not an image this tool can open (UnidentifiedImageError)"]
+    # second run: everything cached, earlier report kept, the new one numbered and announced
+    code = main(["batch", str(parcel), "--out", str(out), "--json"])
+    captured = capsys.readouterr()
+    assert code == 3 and json.loads(captured.out)["counts"]["cached"] == 3  # the rejection is cached too
+    assert "report-2.html" in captured.err and (out / "report.json").exists()
+
+
+def test_human_table_and_exit_0(tmp_path, capsys, fake_reader_everywhere):
+    parcel = tmp_path / "parcel"
+    write_fake_photo(parcel / "r000_pol0.png", [1.7180])
+    assert main(["batch", str(parcel), "--out", str(tmp_path / "out")]) == 0
+    out = capsys.readouterr().out
+    assert "parcel" in out and "1.7180" in out and "quartz" in out
+
+
+def test_watch_command_once(tmp_path, capsys, fake_reader_everywhere):
+    write_fake_photo(tmp_path / "inbox" / "s1" / "r000_pol0.png", [1.62])
+    code = main(["watch", str(tmp_path / "inbox"), "--out", str(tmp_path / "out"), "--once",
+                 "--interval", "0.05"])
+    out = capsys.readouterr().out
+    assert code == 0 and "s1/r000_pol0.png: 1.6200" in out and "reports:" in out
