@@ -43,7 +43,7 @@ from critline.errors import UsageError
 SCALE_MODELS = {"offset": 1, "offset+gain": 2, "smooth": 3}
 #: references needed before a scale-map kind may be used
 SCALE_MODEL_MIN_REFS = {"offset": 2, "offset+gain": 3, "smooth": 5}
-#: field-frame map degrees (polynomial in field radii); degree d needs d + 2 references
+#: field-frame map degrees (polynomial in field radii); degree d needs d + 1 references
 FIELD_MAX_DEGREE = 3
 FIELD_MIN_REFS = 3
 #: the known RIs must span at least this much (RI units), else "all at one end"
@@ -422,14 +422,15 @@ def _fit_field(pairs, step) -> tuple[PolynomialMap | None, str, np.ndarray | Non
     s = _sigmas(usable, step)
     centre = float((f.min() + f.max()) / 2)
     half = max(float(np.ptp(f)) / 2, 1e-3)
-    degrees = [d for d in range(1, FIELD_MAX_DEGREE + 1) if len(usable) >= d + 2]
+    degrees = [d for d in range(1, FIELD_MAX_DEGREE + 1) if len(usable) >= d + 1]
     fits = {d: fit_polynomial(f, y, s, d + 1, additive=False, kind=f"field-degree-{d}",
                               centre=centre, half_span=half) for d in degrees}
     aic = {d: m.chi2 + 2 * (d + 1) for d, m in fits.items()}
     best = min(degrees, key=lambda d: (aic[d], d))
     reason = (f"field-degree-{best}: polynomial in field radii, {len(usable)} references; AIC "
               + ", ".join(f"degree {d} {aic[d]:.1f}" for d in degrees)
-              + "; lower precision than the graduations")
+              + "; lower precision than the graduations"
+              + ("; as many terms as references, so it cannot check itself" if fits[best].dof == 0 else ""))
     loo = None
     if len(usable) - 1 >= best + 1:
         loo = np.empty(len(usable))
