@@ -157,6 +157,9 @@ def bad_cases():
         write_reference(d, "corundum.jpg", [1.7600, 1.7681], offset=0.004, gain=0.008)
         return m
 
+    def bad_light(d):
+        return make_set(d)
+
     def wrong_key(d):
         return make_set(d, extra_rows=["quartz.jpg,moonstone-x,"])
 
@@ -182,6 +185,7 @@ def bad_cases():
             "reference photo rejected": (rejected_photo, "was rejected"),
             "path climbing out": (climbing, "outside the manifest's folder"),
             "ambiguous pairing": (ambiguous, "cannot pair"),
+            "light option": (bad_light, "light must be one of"),
             "unknown reference key": (wrong_key, "neither a number nor a reference key"),
             "missing photo": (missing_photo, "not found"),
             "bad header": (bad_header, "header photo,known_ri"),
@@ -193,7 +197,8 @@ def test_bad_input_exit_2_one_line_nothing_written(tmp_path, capsys, stand_in_re
     build, reason = bad_cases()[case]
     manifest = build(tmp_path)
     out = tmp_path / "out" / "cal.toml"
-    code, stdout, err = run([manifest, "--out", out], capsys)
+    extra = ["--light", "daylight"] if case == "light option" else []
+    code, stdout, err = run([manifest, "--out", out, *extra], capsys)
     assert code == 2, (case, err)
     assert err.count("\n") == 1 and err.startswith("critline: error:") and reason in err, err
     assert "Traceback" not in err and stdout == ""
@@ -219,3 +224,16 @@ def test_reading_noise_gives_honest_residuals(tmp_path, capsys, monkeypatch):
     doc = json.loads(stdout)
     assert 0.00005 < doc["loo_rms"] < 0.0012
     assert np.isfinite(doc["residual_rms"])
+
+
+def test_an_excluded_photo_may_be_unreadable(tmp_path, capsys, stand_in_reader):
+    manifest = make_set(tmp_path, GOOD + [("blurred.jpg", "calcite-o", [1.6583])])
+    write_reference(tmp_path, "blurred.jpg", [1.6583], status="rejected")
+    code, stdout, err = run([manifest, "--out", tmp_path / "c.toml", "--exclude", "blurred.jpg",
+                             "--json"], capsys)
+    assert code == 0, err
+    doc = json.loads(stdout)
+    assert "blurred.jpg" not in {r["photo"] for r in doc["references"]}
+    assert any("blurred.jpg" in w and "rejected" in w for w in doc["warnings"])
+    code, _, err = run([manifest, "--out", tmp_path / "d.toml", "--exclude", "nothere.jpg"], capsys)
+    assert code == 2 and "not a photo of the manifest" in err

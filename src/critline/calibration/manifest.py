@@ -18,7 +18,9 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from critline.calibration.fitting import (
+    MIN_SPAN,
     SCALE_MODEL_MIN_REFS,
+    SCALE_MODELS,
     CalibrationError,
     CalibrationFit,
     ReferencePair,
@@ -109,6 +111,12 @@ def check_rows(rows: tuple[ManifestRow, ...], manifest: Path, instrument: Instru
     need = SCALE_MODEL_MIN_REFS["offset"]
     if len(used) < need:
         raise CalibrationError(f"{manifest}: too few references: {len(used)} edge(s), at least {need} needed")
+    span = max(r.known_ri for r in used) - min(r.known_ri for r in used)
+    if span < MIN_SPAN:
+        raise CalibrationError(
+            f"{manifest}: references all at one end of the scale: known RIs span only "
+            f"{min(r.known_ri for r in used):.4f} to {max(r.known_ri for r in used):.4f} ({span:.4f}); "
+            f"at least {MIN_SPAN} is needed: add a reference from the other end")
     hashes: dict[str, str] = {}
     seen: dict[str, str] = {}
     for r in rows:
@@ -155,6 +163,10 @@ def calibrate_manifest(manifest: str | Path, *, instrument: Instrument | None = 
     manifest = Path(manifest)
     inst = instrument or DEFAULT
     exclude = tuple(exclude)
+    if light is not None and light not in LIGHTS:
+        raise CalibrationError(f"light must be one of {', '.join(LIGHTS)}, not {light!r}")
+    if model is not None and model not in SCALE_MODELS:
+        raise CalibrationError(f"unknown model {model!r}: use one of {', '.join(SCALE_MODELS)}")
     rows = read_manifest(manifest)
     hashes = check_rows(rows, manifest, inst, exclude)
     read = read or default_reader()
@@ -167,26 +179,33 @@ def calibrate_manifest(manifest: str | Path, *, instrument: Instrument | None = 
     records: list[tuple[str, str, str]] = []
     excluded_idx: list[int] = []
     lights = set()
+    warnings = []
     for photo, group in by_photo.items():
+        is_excluded = photo in exclude or group[0].path.name in exclude
         reading = read(group[0].path, instrument=inst)
         readings.append(reading)
-        if reading.status == "rejected":
-            raise CalibrationError(f"{manifest}: reference photo {photo} was rejected ({reading.reason})")
-        if reading.status == "over_limit":
-            raise CalibrationError(f"{manifest}: reference photo {photo} is over the limit (only the "
-                                   "liquid edge shows): it cannot calibrate")
         stones = sorted(reading.stone_edges, key=lambda e: e.scale_position)
-        if reading.status == "no_edge" or not stones:
-            raise CalibrationError(f"{manifest}: no stone edge found in reference photo {photo}")
-        if len(stones) != len(group):
-            raise CalibrationError(
-                f"{manifest}: photo {photo} shows {len(stones)} stone edge(s) but the manifest gives "
-                f"{len(group)} known RI(s): cannot pair them (one row per edge; a polariser shows one "
-                "edge at a time)")
-        if reading.light in LIGHTS:
+        problem = None
+        if reading.status == "rejected":
+            problem = f"reference photo {photo} was rejected ({reading.reason})"
+        elif reading.status == "over_limit":
+            problem = (f"reference photo {photo} is over the limit (only the liquid edge shows): "
+                       "it cannot calibrate")
+        elif reading.status == "no_edge" or not stones:
+            problem = f"no stone edge found in reference photo {photo}"
+        elif len(stones) != len(group):
+            problem = (f"photo {photo} shows {len(stones)} stone edge(s) but the manifest gives "
+                       f"{len(group)} known RI(s): cannot pair them (one row per edge; a polariser "
+                       "shows one edge at a time)")
+        if problem and is_excluded:
+            warnings.append(f"excluded and left out of the record: {problem}")
+            continue
+        if problem:
+            raise CalibrationError(f"{manifest}: {problem}")
+        if reading.light in LIGHTS and not is_excluded:
             lights.add(reading.light)
         for row, edge in zip(sorted(group, key=lambda r: r.known_ri), stones, strict=True):
-            if photo in exclude or row.path.name in exclude:
+            if is_excluded:
                 excluded_idx.append(len(pairs))
             pairs.append(ReferencePair(
                 scale_position=edge.scale_position, scale_uncertainty=max(edge.scale_uncertainty, 1e-6),
@@ -195,13 +214,10 @@ def calibrate_manifest(manifest: str | Path, *, instrument: Instrument | None = 
                 label=photo + (f" ({row.material})" if row.material else "")))
             records.append((photo, hashes[photo], row.material))
 
-    warnings = []
     if len(lights) > 1:
         raise CalibrationError(f"{manifest}: reference photos mix monochromatic and white light: "
                                "calibrate each light separately")
     if light is not None:
-        if light not in LIGHTS:
-            raise CalibrationError(f"light must be one of {', '.join(LIGHTS)}, not {light!r}")
         if lights and light not in lights:
             raise CalibrationError(f"{manifest}: --light {light} but the photos were taken in "
                                    f"{next(iter(lights))} light")
