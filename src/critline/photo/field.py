@@ -6,7 +6,7 @@ At reduced resolution the smoothed luminance is thresholded at a few levels
 between the dark surround and the field (Otsu's threshold, and lower levels
 so that the shadow's dark half still counts as field), the largest region is
 kept and its boundary points -- those not on the frame border -- are fitted
-with a circle by RANSAC (Fischler and Bolles 1981; ``skimage.measure.ransac``
+with a circle by RANSAC (Fischler and Bolles 1981; vectorised over the trials,
 with ``skimage.measure.CircleModel``).  A clipped side, a vignetting crescent
 or the straight shadow boundary are outliers to the circle and do not pull
 the fit.  The best-supported circle is then checked: enough of its in-frame
@@ -28,7 +28,7 @@ from dataclasses import dataclass, field
 import cv2
 import numpy as np
 from skimage.filters import threshold_otsu
-from skimage.measure import CircleModel, ransac
+from skimage.measure import CircleModel
 
 
 @dataclass(frozen=True)
@@ -85,24 +85,89 @@ def _boundary_points(mask: np.ndarray) -> np.ndarray:
     return pts[keep]
 
 
+def _circles_from_triples(p1, p2, p3):
+    """Circumcircles of point triples (vectorised); radius inf for collinear triples."""
+    ax, ay = p1[:, 0], p1[:, 1]
+    bx, by = p2[:, 0], p2[:, 1]
+    cx, cy = p3[:, 0], p3[:, 1]
+    d = 2 * (ax * (by - cy) + bx * (cy - ay) + cx * (ay - by))
+    a2, b2, c2 = ax * ax + ay * ay, bx * bx + by * by, cx * cx + cy * cy
+    with np.errstate(divide="ignore", invalid="ignore"):
+        ux = (a2 * (by - cy) + b2 * (cy - ay) + c2 * (ay - by)) / d
+        uy = (a2 * (cx - bx) + b2 * (ax - cx) + c2 * (bx - ax)) / d
+    r = np.hypot(ax - ux, ay - uy)
+    r[~np.isfinite(r)] = np.inf
+    return ux, uy, r
+
+
+def ransac_circle(points: np.ndarray, tol: float, r_range: tuple[float, float], trials: int = 400,
+                  seed: int = 0):
+    """RANSAC circle fit (Fischler and Bolles 1981), vectorised over the trials.
+
+    Minimal samples of three points give circumcircles; the one with most
+    points within ``tol`` wins and is refined by a least-squares circle fit
+    (``skimage.measure.CircleModel``) on its inliers.
+
+    Returns
+    -------
+    (cx, cy, r, inlier mask) or None
+    """
+    n = len(points)
+    if n < 10:
+        return None
+    rng = np.random.default_rng(seed)
+    idx = rng.integers(0, n, size=(trials, 3))
+    cx, cy, r = _circles_from_triples(points[idx[:, 0]], points[idx[:, 1]], points[idx[:, 2]])
+    ok = np.isfinite(r) & (r >= r_range[0]) & (r <= r_range[1])
+    if not ok.any():
+        return None
+    cx, cy, r = cx[ok], cy[ok], r[ok]
+    best_count, best = -1, None
+    for start in range(0, len(r), 100):  # chunks keep the distance matrix small
+        sl = slice(start, start + 100)
+        d = np.abs(np.hypot(points[None, :, 0] - cx[sl, None], points[None, :, 1] - cy[sl, None]) - r[sl, None])
+        counts = (d < tol).sum(axis=1)
+        j = int(np.argmax(counts))
+        if counts[j] > best_count:
+            best_count, best = int(counts[j]), (cx[sl][j], cy[sl][j], r[sl][j])
+    inl = np.abs(np.hypot(points[:, 0] - best[0], points[:, 1] - best[1]) - best[2]) < tol
+    if inl.sum() < 10:
+        return None
+    model = CircleModel.from_estimate(points[inl])
+    if model:
+        c = model.center
+        cand = (float(c[0]), float(c[1]), float(model.radius))
+        inl2 = np.abs(np.hypot(points[:, 0] - cand[0], points[:, 1] - cand[1]) - cand[2]) < tol
+        if inl2.sum() >= inl.sum():
+            return cand[0], cand[1], cand[2], inl2
+    return float(best[0]), float(best[1]), float(best[2]), inl
+
+
 def _in_frame_fraction(cx, cy, r, w, h, n=360):
     t = np.linspace(0, 2 * np.pi, n, endpoint=False)
     x, y = cx + r * np.cos(t), cy + r * np.sin(t)
     return float(np.mean((x >= 0) & (x < w) & (y >= 0) & (y < h))), t, x, y
 
 
-def _score_circle(cx, cy, r, pts, w, h, tol):
-    """Fraction of the in-frame circumference with a boundary point within tol."""
-    frac, t, x, y = _in_frame_fraction(cx, cy, r, w, h)
-    inside = (x >= 2) & (x < w - 2) & (y >= 2) & (y < h - 2)
-    if inside.sum() < 20 or len(pts) == 0:
+def _score_circle(cx, cy, r, gx, gy, thr, tol):
+    """Fraction of the in-frame circumference where a strong, radially pointing gradient lies
+    within ``tol`` of the circle."""
+    h, w = gx.shape
+    frac, t, _, _ = _in_frame_fraction(cx, cy, r, w, h)
+    radii = r + np.arange(-np.ceil(tol), np.ceil(tol) + 1)
+    ct, st = np.cos(t), np.sin(t)
+    xs = np.rint(cx + radii[:, None] * ct[None, :]).astype(int)
+    ys = np.rint(cy + radii[:, None] * st[None, :]).astype(int)
+    inside = (xs >= 2) & (xs < w - 2) & (ys >= 2) & (ys < h - 2)
+    xs, ys = np.clip(xs, 0, w - 1), np.clip(ys, 0, h - 1)
+    gxs, gys = gx[ys, xs], gy[ys, xs]
+    radial = gxs * ct[None, :] + gys * st[None, :]
+    mag = np.hypot(gxs, gys) + 1e-12
+    hit = inside & (np.abs(radial) > thr) & (np.abs(radial) > 0.7 * mag)
+    seen = inside.any(axis=0)
+    if seen.sum() < 20:
         return 0.0, frac
-    d = np.hypot(pts[:, 0] - cx, pts[:, 1] - cy)
-    near = np.abs(d - r) < tol
-    ang = np.arctan2(pts[near, 1] - cy, pts[near, 0] - cx) % (2 * np.pi)
-    bins = np.zeros(len(t), bool)
-    bins[(ang / (2 * np.pi) * len(t)).astype(int) % len(t)] = True
-    return float(bins[inside].mean()), frac
+    return float(hit.any(axis=0)[seen].mean()), frac
 
 
 def find_field(grey: np.ndarray, reduce: int = 1, seed: int = 0) -> FieldResult:
@@ -134,26 +199,30 @@ def find_field(grey: np.ndarray, reduce: int = 1, seed: int = 0) -> FieldResult:
         return FieldResult(None, "blank frame: no contrast")
     levels = sorted({otsu, lo + 0.5 * (otsu - lo), lo + 0.25 * (otsu - lo), lo + 0.12 * (hi - lo)})
     tol = max(1.5, short / 200)
-    best = None
+    gx = cv2.Sobel(g, cv2.CV_32F, 1, 0, ksize=3) / 8
+    gy = cv2.Sobel(g, cv2.CV_32F, 0, 1, ksize=3) / 8
+    mag = np.hypot(gx, gy)
+    thr = max(0.15 * float(np.percentile(mag, 99.5)), 0.002)
+    point_sets = []
     for level in levels:
-        mask = g > level
-        pts = _boundary_points(mask)
-        if len(pts) < 30:
+        pts = _boundary_points(g > level)
+        if len(pts) >= 30:
+            point_sets.append((level, pts))
+    # edge points of strong gradient (the field stop where the shadow's dark half meets the surround)
+    u8 = np.clip((g - lo) / max(hi - lo, 1e-6) * 255, 0, 255).astype(np.uint8)
+    edges = cv2.Canny(u8, 20, 50, L2gradient=True)
+    ey, ex = np.nonzero(edges[2:-2, 2:-2])
+    if len(ex) >= 30:
+        point_sets.append((-1.0, np.stack([ex + 2, ey + 2], axis=1).astype(np.float64)))
+    best = None
+    for level, pts in point_sets:
+        if len(pts) > 2500:  # thin out evenly, keeps RANSAC fast
+            pts = pts[:: len(pts) // 2500 + 1]
+        fit = ransac_circle(pts, tol, (0.09 * short, 0.62 * short), trials=500, seed=seed)
+        if fit is None:
             continue
-        if len(pts) > 3000:  # thin out evenly, keeps RANSAC fast
-            pts = pts[:: len(pts) // 3000 + 1]
-        model, inliers = ransac(pts, CircleModel, min_samples=3, residual_threshold=tol,
-                                max_trials=300, rng=seed)
-        if model is None or inliers is None or inliers.sum() < 20:
-            continue
-        refined = CircleModel.from_estimate(pts[inliers])
-        if refined:
-            model = refined
-        cx, cy = (float(v) for v in model.center)
-        r = float(model.radius)
-        if not (0.09 * short <= r <= 0.62 * short):
-            continue
-        support, frac = _score_circle(cx, cy, r, pts, w, h, tol)
+        cx, cy, r, _ = fit
+        support, frac = _score_circle(cx, cy, r, gx, gy, thr, tol)
         if best is None or support > best[0]:
             best = (support, frac, cx, cy, r, level)
     if best is None:
@@ -172,7 +241,7 @@ def find_field(grey: np.ndarray, reduce: int = 1, seed: int = 0) -> FieldResult:
     circle = FieldCircle(cx * reduce + (reduce - 1) / 2, cy * reduce + (reduce - 1) / 2, r * reduce,
                          support, frac, contrast,
                          {"field_level": field_level, "surround_level": surround, "threshold": level})
-    if support < 0.4:
+    if support < 0.3:
         return FieldResult(None, f"no circular field stop found (best circle only {support:.0%} outlined)")
     if contrast < 0.6:
         return FieldResult(None, f"no dark surround around a bright field (contrast {contrast:.2f})")

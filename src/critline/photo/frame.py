@@ -4,9 +4,11 @@ Method
 ------
 The graduations are parallel dark lines and the shadow edge runs parallel to
 them, so inside the field the image gradients point along the scale axis.
-The dominant gradient orientation is taken from the structure tensor summed
-over the field interior (doubled-angle average; Bigun and Granlund 1987,
-Jahne, *Digital Image Processing*, ch. 13).  The field stop's own rim is
+The dominant gradient orientation is the peak of the gradient-energy
+weighted histogram of doubled gradient angles over the field interior,
+refined by the structure-tensor (doubled-angle) mean around that peak (Bigun
+and Granlund 1987; Jahne, *Digital Image Processing*, ch. 13), on a
+high-passed image so that broad shading does not count.  The field stop's own rim is
 excluded because its gradients point every way.  The field is then resampled
 (``cv2.warpAffine``) so that the scale axis runs down the rows: row ``i`` is
 the position ``u = i - half`` along the axis from the field centre, column
@@ -21,8 +23,6 @@ from dataclasses import dataclass
 
 import cv2
 import numpy as np
-
-from critline.photo.load import srgb_to_linear
 
 
 @dataclass(frozen=True)
@@ -46,8 +46,9 @@ class FieldFrame:
     ----------
     grey : ndarray (n, n) float32
         Stored (non-linear) luma, for finding the graduations.
-    linear : ndarray (n, n, 3) float32
-        Linear-light RGB, for brightness profiles.
+    rgb : ndarray (n, n, 3) float32
+        Stored (sRGB-encoded) RGB; :func:`critline.photo.load.srgb_to_linear` gives linear
+        light for the columns a profile needs.
     inside : ndarray (n, n) bool
         Pixels inside the field stop and inside the photo frame.
     angle, cx, cy, half, reduce :
@@ -57,7 +58,7 @@ class FieldFrame:
     """
 
     grey: np.ndarray
-    linear: np.ndarray
+    rgb: np.ndarray
     inside: np.ndarray
     angle: float
     cx: float
@@ -78,7 +79,7 @@ class FieldFrame:
 
     def flipped(self) -> FieldFrame:
         """The same frame with the axis direction reversed (u -> -u, v -> -v)."""
-        return FieldFrame(self.grey[::-1, ::-1], self.linear[::-1, ::-1], self.inside[::-1, ::-1],
+        return FieldFrame(self.grey[::-1, ::-1], self.rgb[::-1, ::-1], self.inside[::-1, ::-1],
                           self.angle + np.pi, self.cx, self.cy, self.half, self.reduce, self.radius)
 
 
@@ -96,17 +97,29 @@ def axis_angle(grey: np.ndarray, cx: float, cy: float, r: float) -> AxisEstimate
     x0, x1 = max(0, int(cx - r)), min(w, int(cx + r) + 1)
     y0, y1 = max(0, int(cy - r)), min(h, int(cy + r) + 1)
     crop = grey[y0:y1, x0:x1]
-    sigma = max(1.0, r / 300)
+    # high-pass first: thin graduations and the sharp shadow edge stay, the broad gradients of a
+    # vignetting crescent or of uneven light do not
+    sigma = max(1.0, r / 400)
     sm = cv2.GaussianBlur(crop, (0, 0), sigma)
-    gx = cv2.Sobel(sm, cv2.CV_32F, 1, 0, ksize=3)
-    gy = cv2.Sobel(sm, cv2.CV_32F, 0, 1, ksize=3)
+    hp = sm - cv2.GaussianBlur(crop, (0, 0), 4 * sigma)
+    gx = cv2.Sobel(hp, cv2.CV_32F, 1, 0, ksize=3)
+    gy = cv2.Sobel(hp, cv2.CV_32F, 0, 1, ksize=3)
     yy, xx = np.ogrid[y0:y1, x0:x1]
     inner = ((xx - cx) ** 2 + (yy - cy) ** 2) < (0.85 * r) ** 2
-    jxx = float(np.sum(gx * gx, where=inner))
-    jyy = float(np.sum(gy * gy, where=inner))
-    jxy = float(np.sum(gx * gy, where=inner))
-    angle = 0.5 * np.arctan2(2 * jxy, jxx - jyy)
-    coherence = float(np.hypot(jxx - jyy, 2 * jxy) / max(jxx + jyy, 1e-12))
+    wgt = (gx * gx + gy * gy)[inner]
+    doubled = np.arctan2(2 * gx[inner] * gy[inner], gx[inner] ** 2 - gy[inner] ** 2)
+    # orientation histogram (doubled angle): the peak, not the mean, so that other structure
+    # (labels, dust, a curved crescent) spreads out instead of pulling the estimate
+    nb = 360
+    hist = np.bincount(((doubled + np.pi) / (2 * np.pi) * nb).astype(int) % nb, weights=wgt, minlength=nb)
+    kern = np.exp(-0.5 * (np.arange(-6, 7) / 2.0) ** 2)
+    smooth = np.convolve(np.concatenate([hist[-6:], hist, hist[:6]]), kern, mode="same")[6:-6]
+    peak = (np.argmax(smooth) + 0.5) / nb * 2 * np.pi - np.pi
+    near = np.abs(np.angle(np.exp(1j * (doubled - peak)))) < np.deg2rad(8)
+    c2 = float(np.sum(wgt[near] * np.cos(doubled[near])))
+    s2 = float(np.sum(wgt[near] * np.sin(doubled[near])))
+    angle = 0.5 * np.arctan2(s2, c2)
+    coherence = float(wgt[near].sum() / max(wgt.sum(), 1e-12))
     return AxisEstimate(float(angle), coherence)
 
 
@@ -137,5 +150,4 @@ def make_frame(rgb: np.ndarray, cx: float, cy: float, r: float, angle: float, re
     grey = (0.299 * warped[..., 0] + 0.587 * warped[..., 1] + 0.114 * warped[..., 2]).astype(np.float32)
     ii, jj = np.ogrid[0:n, 0:n]
     inside = valid & (((ii - half) ** 2 + (jj - half) ** 2) < (0.97 * r) ** 2)
-    linear = srgb_to_linear(warped)
-    return FieldFrame(grey, linear, inside, float(angle), float(cx), float(cy), half, reduce, float(r))
+    return FieldFrame(grey, warped, inside, float(angle), float(cx), float(cy), half, reduce, float(r))

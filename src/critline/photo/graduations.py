@@ -31,6 +31,7 @@ from dataclasses import dataclass, field
 
 import cv2
 import numpy as np
+from scipy.ndimage import median_filter
 from scipy.signal import find_peaks
 
 from critline.instrument import Instrument
@@ -124,8 +125,12 @@ def normalised(grey: np.ndarray, inside: np.ndarray, radius: float) -> np.ndarra
     return out.astype(np.float32)
 
 
-def find_column(dark: np.ndarray, inside: np.ndarray, radius: float) -> GraduationColumn:
-    """The most periodic band of columns and its period (FFT along the axis)."""
+def find_column(dark: np.ndarray, inside: np.ndarray, radius: float, count: int = 51) -> GraduationColumn:
+    """The most periodic band of columns and its period (FFT along the axis).
+
+    ``count`` graduations must fit within the field's diameter, which bounds
+    the period from above (so the long graduations' own period is not taken).
+    """
     n = dark.shape[0]
     half = n // 2
     chord = int(0.8 * radius)
@@ -134,7 +139,7 @@ def find_column(dark: np.ndarray, inside: np.ndarray, radius: float) -> Graduati
     spec = np.abs(np.fft.rfft(block, axis=0)) ** 2
     m = block.shape[0]
     freqs = np.arange(spec.shape[0]) / m  # cycles per pixel
-    lo_f, hi_f = 1.0 / max(8.0, radius / 4), 1.0 / 3.2
+    lo_f, hi_f = 1.0 / max(6.0, 2.1 * radius / max(count - 1, 1)), 1.0 / 2.8
     band = (freqs >= lo_f) & (freqs <= hi_f)
     if band.sum() < 3:
         raise GraduationsNotFound("field too small to hold graduations")
@@ -300,11 +305,18 @@ def find_graduations(frame: FieldFrame, instrument: Instrument, dark: np.ndarray
     cnt = ins.sum(axis=1)
     profile = np.where(cnt > 0, band.sum(axis=1) / np.maximum(cnt, 1), 0.0)
     usable = cnt >= max(1, 0.6 * band.shape[1])
-    # noise of the darkness profile from its first differences (robust)
-    diffs = np.diff(profile[usable]) if usable.sum() > 10 else np.diff(profile)
-    noise = 1.4826 * float(np.median(np.abs(diffs - np.median(diffs)))) / np.sqrt(2) + 1e-6
     profile = np.where(usable, profile, 0.0)
-    pos, prom = _detect(profile, col.period, noise)
+    # local noise of the darkness profile from the spread across the band's columns (robust),
+    # smoothed along the rows: the dark part of the field is much noisier than the bright part
+    spread = 1.4826 * np.median(np.abs(band - np.median(band, axis=1, keepdims=True)), axis=1)
+    row_noise = 1.5 * spread / np.sqrt(max(band.shape[1], 1))
+    win = max(9, int(6 * col.period) | 1)
+    local_noise = median_filter(row_noise, size=win, mode="nearest") + 1e-5
+    noise = float(np.median(local_noise[usable])) if usable.any() else float(np.median(local_noise))
+    pos, prom = _detect(profile, col.period, 0.5 * noise)
+    if len(pos):
+        strong = prom > 4 * local_noise[np.clip(np.round(pos).astype(int), 0, len(profile) - 1)]
+        pos, prom = pos[strong], prom[strong]
     if len(pos) < 6:
         raise GraduationsNotFound(f"graduations not found (only {len(pos)} lines in the graduation column)")
     k = _assign(pos, col.period)
@@ -313,6 +325,15 @@ def find_graduations(frame: FieldFrame, instrument: Instrument, dark: np.ndarray
     if keep.sum() < 6:
         raise GraduationsNotFound("graduations not found (too few lines fit a smooth scale)")
     pos, k, prom = pos[keep], k[keep], prom[keep]
+    # drop small groups separated from the rest by a gap (dust, label strokes beyond the scale end)
+    order = np.argsort(k)
+    pos, k, prom = pos[order], k[order], prom[order]
+    seg = np.concatenate([[0], np.cumsum(np.diff(k) > 3)])
+    sizes = np.bincount(seg)
+    good = sizes[seg] >= 4
+    if good.sum() >= 6:
+        pos, k, prom = pos[good], k[good], prom[good]
+        coef, cov, _ = _fit(k, pos, deg)
     max_len = int(max(4 * (col.v_hi - col.v_lo + 1), 0.1 * frame.radius))
     lengths = _lengths(dark, pos, col, max_len)
     flags = []
@@ -329,50 +350,22 @@ def find_graduations(frame: FieldFrame, instrument: Instrument, dark: np.ndarray
         profile = profile[::-1]
         col = GraduationColumn(col.period, n - 1 - col.v_hi, n - 1 - col.v_lo, col.periodicity)
     k = k - k.min()
-
-    # --- index modulo the long/medium pattern
-    base = int(round(instrument.first / instrument.step))
-    le, me = instrument.long_every or 0, instrument.medium_every or 0
-    period_pat = le if le else (me if me else 0)
-    lnorm = (lengths - np.median(lengths)) / max(np.median(lengths), 1.0)
-    best_phase, best_score, second = 0, -np.inf, -np.inf
-    if period_pat:
-        for phase in range(period_pat):
-            absolute = k + phase + base
-            expect = np.where(le and (absolute % le == 0), 2.0,
-                              np.where(me and (absolute % me == 0), 1.0, 0.0)) if le else \
-                np.where(absolute % me == 0, 1.0, 0.0)
-            if expect.std() == 0:
-                continue
-            sc = float(np.corrcoef(lnorm, expect)[0, 1])
-            if sc > best_score:
-                best_score, second, best_phase = sc, best_score, phase
-            elif sc > second:
-                second = sc
-    pattern_margin = best_score - second if np.isfinite(second) else best_score
-    # candidates: first index k_abs = k + phase + 10 t must fit on the scale
-    count = instrument.count
-    lo_ok = [t for t in range(-count, count + 1)
-             if (k.min() + best_phase + period_pat * t) >= 0 and (k.max() + best_phase + period_pat * t) <= count - 1] \
-        if period_pat else []
-    # scale ends: would a graduation just beyond the found ones be visible?
-    cand = [best_phase + period_pat * t for t in lo_ok]
-    end_low = _end_visible(profile, pos, col.period, noise, -1, frame)
-    end_high = _end_visible(profile, pos, col.period, noise, +1, frame)
-    chosen = None
-    if end_low:
-        chosen = [c for c in cand if k.min() + c == 0]
-    if not chosen and end_high:
-        chosen = [c for c in cand if k.max() + c == count - 1]
-    if not chosen:
-        chosen = cand if len(cand) == 1 else None
-    if not chosen:
+    if not values_down:
+        local_noise = local_noise[::-1]
+    coef_rel, _, _ = _fit(k, pos, deg)
+    offset, margin, phase_margin, details = _identify(k, pos, lengths, coef_rel, profile, local_noise,
+                                                      frame, col, instrument)
+    if margin < 2.0:
         raise GraduationsNotFound(
-            "graduations found but their values are ambiguous (no scale end in view)")
-    offset = chosen[0]
-    if end_low and end_high and (k.max() - k.min()) != count - 1:
-        flags.append("scale_ends_inconsistent")
+            f"graduations found but their values are ambiguous (identification margin {margin:.1f})")
     k = k + offset
+    count = instrument.count
+    on_scale = (k >= 0) & (k <= count - 1)
+    pos, k, lengths, prom = pos[on_scale], k[on_scale], lengths[on_scale], prom[on_scale]
+    if len(pos) < 6:
+        raise GraduationsNotFound("graduations not found (too few lines on the scale)")
+    end_low, end_high = details["end_low"], details["end_high"]
+    pattern_margin = phase_margin
     # refit in absolute index with values increasing down the rows
     coef, cov, res = _fit(k, pos, deg)
     # expected graduations inside the usable field along the column
@@ -387,7 +380,8 @@ def find_graduations(frame: FieldFrame, instrument: Instrument, dark: np.ndarray
                "graduation_rms_px": float(np.sqrt(np.mean(res ** 2))),
                "pattern_margin": float(pattern_margin) if np.isfinite(pattern_margin) else 0.0,
                "scale_end_low_seen": bool(end_low), "scale_end_high_seen": bool(end_high)}
-    if pattern_margin < 0.1 and not (end_low or end_high):
+    figures["identification_margin"] = float(margin)
+    if pattern_margin < 0.1:
         flags.append("pattern_weak")
     if expected and len(pos) < 0.6 * expected:
         flags.append("graduations_partly_found")
@@ -395,30 +389,74 @@ def find_graduations(frame: FieldFrame, instrument: Instrument, dark: np.ndarray
                        figures, tuple(flags)), frame
 
 
-def _end_visible(profile, pos, period, noise, side, frame):
-    """True when, one spacing beyond the last graduation on this side, the column is in the
-    bright field and shows no line: the scale ends there."""
-    if len(pos) < 3:
-        return False
-    if side < 0:
-        p0, p1 = pos[0], pos[1]
-        cand = p0 - (p1 - p0)
-    else:
-        p0, p1 = pos[-1], pos[-2]
-        cand = p0 + (p0 - p1)
-    n = frame.grey.shape[0]
-    if not (period < cand < n - period):
-        return False
-    if abs(cand - frame.half) > 0.85 * frame.radius:
-        return False
-    # only where the field is bright enough for a line to show
-    lum = frame.linear[..., 1]
-    ci = int(round(cand))
-    strip = lum[max(0, ci - 2):ci + 3][frame.inside[max(0, ci - 2):ci + 3]]
-    bright = lum[frame.inside]
-    if strip.size < 5 or np.median(strip) < 0.5 * np.percentile(bright, 90):
-        return False
-    lo, hi = int(cand - 0.3 * period), int(cand + 0.3 * period) + 1
-    seen = float(np.max(profile[lo:hi])) if hi > lo else 0.0
-    typical = float(np.median(profile[np.clip(np.round(pos).astype(int), 0, n - 1)]))
-    return seen < 0.25 * typical and typical > 6 * noise
+def _identify(k, pos, lengths, coef, profile, noise, frame, col, instrument):
+    """Absolute index of the graduations: the offset ``c`` with absolute index ``k + c``.
+
+    Every candidate offset is scored as a template match: at each integer
+    index near the scale whose predicted row lies in the usable field, the
+    line's darkness in units of the local noise (clipped to -2..5) counts for
+    the candidate if the index is on the scale and against it if it lies
+    beyond an end; the correlation of the measured lengths with the
+    long/medium pattern is added with a weight of 10.  Returns (offset,
+    margin over the best candidate of another offset, margin of the pattern
+    phase, details).
+    """
+    count = instrument.count
+    n = len(profile)
+    base = int(round(instrument.first / instrument.step))
+    le, me = instrument.long_every or 0, instrument.medium_every or 0
+    period = col.period
+    lnorm = (lengths - np.median(lengths)) / max(float(np.median(lengths)), 1.0)
+    m = np.arange(int(k.min()) - count - 12, int(k.max()) + count + 12)
+    rows = np.polynomial.polynomial.polyval(m, coef)
+    ri = np.round(rows).astype(int)
+    usable = (ri > period) & (ri < n - period)
+    ri_c = np.clip(ri, 0, n - 1)
+    usable &= frame.inside[ri_c, col.v_lo:col.v_hi + 1].mean(axis=1) >= 0.9
+    w = max(1, int(round(0.25 * period)))
+    win = np.clip(ri_c[:, None] + np.arange(-w, w + 1)[None, :], 0, n - 1)
+    z = np.clip(profile[win].max(axis=1) / np.maximum(noise[ri_c], 1e-6), -2, 5)
+    z = np.where(usable, z, 0.0)
+    scores = {}
+    pattern = {}
+    for c in range(-int(k.max()) - 2, count + 2 - int(k.min())):
+        absm = m + c
+        on = (absm >= 0) & (absm <= count - 1)
+        tmpl = float(np.sum(np.where(on, z, -z)))
+        absk = k + c
+        if le or me:
+            absolute = absk + base
+            expect = np.zeros(len(absk))
+            if me:
+                expect[absolute % me == 0] = 1.0
+            if le:
+                expect[absolute % le == 0] = 2.0
+            ok = (absk >= 0) & (absk <= count - 1)
+            if ok.sum() >= 6 and expect[ok].std() > 0 and lnorm[ok].std() > 0:
+                corr = float(np.corrcoef(lnorm[ok], expect[ok])[0, 1])
+            else:
+                corr = 0.0
+        else:
+            corr = 0.0
+        pattern[c] = corr
+        scores[c] = tmpl + 10.0 * corr
+    order = sorted(scores, key=scores.get, reverse=True)
+    best = order[0]
+    margin = scores[best] - scores[order[1]] if len(order) > 1 else np.inf
+    period_pat = le or me
+    other_phase = [pattern[c] for c in pattern if period_pat and (c - best) % period_pat != 0]
+    phase_margin = pattern[best] - max(other_phase) if other_phase else 1.0
+    low_row = np.polynomial.polynomial.polyval(-1 - best, coef)
+    high_row = np.polynomial.polynomial.polyval(count - best, coef)
+
+    def _seen_empty(row):
+        r = int(round(row))
+        if not (period < r < n - period):
+            return False
+        if frame.inside[r, col.v_lo:col.v_hi + 1].mean() < 0.9:
+            return False
+        return profile[max(0, r - w):r + w + 1].max() < 2 * noise[r]
+
+    details = {"end_low": bool(_seen_empty(low_row)), "end_high": bool(_seen_empty(high_row)),
+               "score": scores[best]}
+    return best, float(margin), float(phase_margin), details

@@ -21,6 +21,7 @@ import cv2
 import numpy as np
 
 from critline.photo.frame import FieldFrame
+from critline.photo.load import srgb_to_linear
 
 
 @dataclass(frozen=True)
@@ -124,7 +125,7 @@ def brightness_profile(frame: FieldFrame, v_lo: int, v_hi: int, exclude: int, pe
         cand = np.flatnonzero(np.abs(v) < 0.9 * frame.radius)
     if len(cand) > max_columns:
         cand = cand[np.linspace(0, len(cand) - 1, max_columns).astype(int)]
-    lin = frame.linear[:, cand]  # (n, m, 3)
+    lin = srgb_to_linear(frame.rgb[:, cand])  # (n, m, 3)
     lum = (0.2126 * lin[..., 0] + 0.7152 * lin[..., 1] + 0.0722 * lin[..., 2]).astype(np.float32)
     ok = frame.inside[:, cand] & (np.abs(v[cand])[None, :] < 0.9 * chord[:, None])
     v_ref = (v_lo + v_hi) / 2 - half

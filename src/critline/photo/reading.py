@@ -94,7 +94,7 @@ def _dominant_step(profile: Profile, period: float, half: int, radius: float):
     bi = np.interp(grid, rows, b).astype(np.float32)
     sm = cv2.GaussianBlur(bi.reshape(-1, 1), (1, 0), sigmaX=0, sigmaY=sig).ravel()
     d = np.gradient(sm)
-    inner = np.abs(grid - half) < 0.85 * radius
+    inner = np.abs(grid - half) < 0.93 * radius
     d = np.where(inner, d, 0)
     i = int(np.argmax(np.abs(d)))
     w = int(3 * sig)
@@ -104,7 +104,7 @@ def _dominant_step(profile: Profile, period: float, half: int, radius: float):
     if not (np.isfinite(before) and np.isfinite(after)) or top <= 0:
         return None, 0.0
     rel = (after - before) / top
-    return (rel > 0), float(abs(rel))
+    return bool(rel > 0), float(abs(rel))
 
 
 def read_photo(path, instrument: Instrument | None = None, calibration=None, overlay_dir=None) -> PhotoReading:
@@ -177,7 +177,7 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
         flags.append("field_clipped")
     dark = normalised(frame.grey, frame.inside, frame.radius)
     try:
-        col = find_column(dark, frame.inside, frame.radius)
+        col = find_column(dark, frame.inside, frame.radius, inst.count)
     except GraduationsNotFound as exc:
         return _no_graduations(photo, name, str(exc), figures, flags, calibration), evidence
     exclude = int(max(0.35 * frame.radius, 3 * (col.v_hi - col.v_lo + 1)))
@@ -199,12 +199,16 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
     figures.update(prof.figures)
     flags.extend(grads.flags)
     idx = grads.index_of(prof.rows)
-    ok = np.isfinite(idx) & np.isfinite(prof.brightness)
+    # the map is trusted a few graduations beyond the scale's ends, not further
+    ok = np.isfinite(idx) & np.isfinite(prof.brightness) & (idx > -5) & (idx < inst.count - 1 + 4)
     if ok.sum() < 20:
         raise PhotoRejected("brightness profile too short")
     idx, bright, noise, rgb_p = idx[ok], prof.brightness[ok], prof.noise[ok], prof.rgb[:, ok]
     values = inst.first + inst.step * idx
-    analysis = _analyse(values, bright, noise, inst.liquid_ri, rgb_p)
+    try:
+        analysis = _analyse(values, bright, noise, inst.liquid_ri, rgb_p)
+    except (ValueError, FloatingPointError, np.linalg.LinAlgError, RuntimeError) as exc:
+        raise PhotoRejected(f"edge analysis failed ({type(exc).__name__}: {exc})") from None
     evidence["profile"] = (values, bright)
     evidence["analysis"] = analysis
     if "direction_undetermined" in flags and analysis.edges:
