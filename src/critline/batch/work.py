@@ -110,13 +110,34 @@ def chunk_size(n_tasks: int, workers: int) -> int:
     return max(1, min(8, math.ceil(n_tasks / max(1, workers * 4))))
 
 
-def _context():
+def _context(reader: Reader):
+    """``forkserver`` with the reader's module preloaded: workers start without importing it again."""
     methods = multiprocessing.get_all_start_methods()
     if "forkserver" in methods:
         ctx = multiprocessing.get_context("forkserver")
-        ctx.set_forkserver_preload(["critline.batch.work", "critline.photo"])
+        preload = ["critline.batch.work", "numpy", "cv2"]
+        module = getattr(reader, "__module__", None)
+        if module and module != "__main__":
+            preload.append(module)
+        ctx.set_forkserver_preload(preload)
         return ctx
     return multiprocessing.get_context("spawn")
+
+
+def prepare_workers(reader: Reader) -> None:
+    """Start the fork server now (it imports the reader while this process does other work).
+
+    Workers are forked from it later with everything already imported; the
+    server lives as long as this process and serves later batches too.
+    """
+    ctx = _context(reader)
+    if ctx.get_start_method() == "forkserver":
+        from multiprocessing import forkserver
+
+        try:
+            forkserver.ensure_running()
+        except OSError:
+            pass  # the pool will try again and report
 
 
 def read_many(tasks: Sequence[ReadTask], *, reader: Reader, instrument=None, calibration=None,
@@ -146,7 +167,7 @@ def read_many(tasks: Sequence[ReadTask], *, reader: Reader, instrument=None, cal
 
     size = chunk_size(len(tasks), workers)
     chunks = [list(range(i, min(i + size, len(tasks)))) for i in range(0, len(tasks), size)]
-    with ProcessPoolExecutor(max_workers=min(workers, len(chunks)), mp_context=_context(),
+    with ProcessPoolExecutor(max_workers=min(workers, len(chunks)), mp_context=_context(reader),
                              initializer=_init_worker,
                              initargs=(reader, instrument, calibration)) as pool:
         pending = {pool.submit(_read_chunk, [tasks[i] for i in idx]): idx for idx in chunks}

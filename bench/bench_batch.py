@@ -1,0 +1,112 @@
+"""Batch throughput: reading a parcel with worker processes against one process.
+
+Renders a small invented parcel with the synthesizer (stones of quartz-like,
+spinel-like and tourmaline-like indices, a few rotations and polariser settings,
+frames of about one megapixel), then reads it twice with :func:`critline.batch.run_batch`
+ignoring the cache: once in this process (``workers=1``) and once with worker
+processes (default 2).  Prints both times, photos per second and the speed-up
+measured in this one run (target: >= 1.7x on 2 cores), and checks that both
+runs gave the same readings.
+
+Usage::
+
+    python bench/bench_batch.py [--photos 24] [--megapixels 1.0] [--workers 2] [--keep DIR]
+
+The machine's load average is printed too: other work on the same cores lowers
+the speed-up, and the figure is only meaningful on otherwise idle cores.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import shutil
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+# invented parcel: (stone folder, principal ray indices at one rotation), values from memory
+STONES = (
+    ("bench-quartz-like", (1.5442, 1.5533)),
+    ("bench-spinel-like", (1.7180,)),
+    ("bench-tourmaline-like", (1.6240, 1.6440)),
+)
+SETTINGS = (("none", "both"), ("pol0", "low"), ("pol90", "high"))
+
+
+def render_parcel(folder: Path, n_photos: int, megapixels: float) -> int:
+    from critline.synth import Scene, write_photo
+    from critline.synth.scene import frame_size
+
+    width, height = frame_size(megapixels)
+    count = 0
+    rotation = 0
+    while count < n_photos:
+        for stone, ris in STONES:
+            for tag, polariser in SETTINGS:
+                if count >= n_photos:
+                    break
+                if len(ris) == 1 and polariser != "both":
+                    continue
+                scene = Scene(stone_ris=ris, polariser=polariser, width=width, height=height,
+                              axis_angle_deg=90.0 + 7.0 * count)
+                write_photo(folder / stone / f"r{rotation:03d}_{tag}.jpg", scene, seed=1000 + count)
+                count += 1
+        rotation += 30
+    return count
+
+
+def timed_batch(folder: Path, out: Path, workers: int):
+    from critline.batch import run_batch
+
+    t0 = time.perf_counter()
+    result = run_batch(folder, out_dir=out, workers=workers, fresh=True)
+    return time.perf_counter() - t0, result
+
+
+def signature(result):
+    return [(p.item.display, p.reading.status,
+             tuple(round(e.ri, 4) for e in p.reading.edges))
+            for s in result.stones for p in s.photos]
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--photos", type=int, default=24)
+    ap.add_argument("--megapixels", type=float, default=1.0)
+    ap.add_argument("--workers", type=int, default=2)
+    ap.add_argument("--keep", type=Path, default=None, help="render into this folder and keep it")
+    args = ap.parse_args(argv)
+
+    tmp = Path(tempfile.mkdtemp(prefix="critline-bench-batch-"))
+    folder = args.keep or (tmp / "parcel")
+    try:
+        t0 = time.perf_counter()
+        n = render_parcel(folder, args.photos, args.megapixels)
+        print(f"rendered {n} photos of {args.megapixels:g} MP in {time.perf_counter() - t0:.1f} s")
+        print(f"cores available: {len(os.sched_getaffinity(0))}, load average before: "
+              f"{', '.join(f'{x:.2f}' for x in os.getloadavg())}")
+        # warm-up: imports and first-use caches, so neither timed run pays them alone
+        timed_batch(folder, tmp / "warm", 1)
+        t1, r1 = timed_batch(folder, tmp / "one", 1)
+        t2, r2 = timed_batch(folder, tmp / "many", args.workers)
+        same = signature(r1) == signature(r2)
+        statuses = {}
+        for _, status, _ in signature(r1):
+            statuses[status] = statuses.get(status, 0) + 1
+        ratio = t1 / t2
+        print(f"photo results: {statuses}")
+        print(f"one process:      {t1:7.2f} s  ({n / t1:5.2f} photos/s)")
+        print(f"{args.workers} worker processes: {t2:7.2f} s  ({n / t2:5.2f} photos/s)")
+        print(f"speed-up {args.workers} workers / one process: {ratio:.2f}x "
+              f"(target >= 1.7x on 2 cores: {'met' if ratio >= 1.7 else 'NOT met'})")
+        print(f"same readings in both runs: {same}")
+        print(f"load average after: {', '.join(f'{x:.2f}' for x in os.getloadavg())}")
+        return 0 if same else 1
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)
+
+
+if __name__ == "__main__":
+    sys.exit(main())
