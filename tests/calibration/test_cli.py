@@ -95,6 +95,7 @@ def test_mislabelled_reference_refused_then_excluded_or_forced(tmp_path, capsys,
     out = tmp_path / "cal.toml"
     code, _, err = run([manifest, "--out", out], capsys)
     assert code == 2 and "quartz2.jpg" in err and "sigma" in err and err.count("\n") == 1
+    assert "reads like quartz-o" in err  # the hint at the swapped label
     assert not out.exists()
     code, stdout, err = run([manifest, "--out", out, "--exclude", "quartz2.jpg", "--json"], capsys)
     assert code == 0, err

@@ -24,10 +24,11 @@ from critline.calibration.fitting import (
     CalibrationError,
     CalibrationFit,
     ReferencePair,
+    SuspectReferenceError,
     fit_calibration,
 )
 from critline.calibration.record import LIGHTS, Calibration, make_calibration
-from critline.calibration.references import resolve_known
+from critline.calibration.references import load_references, resolve_known
 from critline.instrument import DEFAULT, Instrument
 from critline.readings import PhotoReading
 
@@ -231,6 +232,8 @@ def calibrate_manifest(manifest: str | Path, *, instrument: Instrument | None = 
     try:
         fit = fit_calibration(pairs, first=inst.first, step=inst.step, model=model,
                               exclude=excluded_idx, force=force)
+    except SuspectReferenceError as exc:
+        raise CalibrationError(f"{manifest}: {exc}{_lookalikes(exc.suspects)}") from None
     except CalibrationError as exc:
         raise CalibrationError(f"{manifest}: {exc}") from None
     cal = make_calibration(fit, photos=tuple(records), setup=setup, light=chosen,
@@ -238,6 +241,21 @@ def calibrate_manifest(manifest: str | Path, *, instrument: Instrument | None = 
                                        "step": inst.step},
                            extra_warnings=tuple(warnings))
     return ManifestResult(cal, fit, tuple(readings))
+
+
+def _lookalikes(suspects, tolerance: float = 0.003) -> str:
+    """Which reference materials a suspect actually reads like (a hint at a swapped label)."""
+    try:
+        table = load_references()
+    except CalibrationError:
+        return ""
+    hints = []
+    for s in suspects:
+        near = sorted((abs(m.ri - s.predicted_ri), m.key) for m in table.values()
+                      if abs(m.ri - s.predicted_ri) <= tolerance)
+        if near:
+            hints.append(f"{s.label.split(' (')[0]} reads like {', '.join(k for _, k in near[:3])}")
+    return f" ({'; '.join(hints)})" if hints else ""
 
 
 def parse_setup(text: str | None) -> dict:
