@@ -238,3 +238,16 @@ def test_an_excluded_photo_may_be_unreadable(tmp_path, capsys, stand_in_reader):
     assert any("blurred.jpg" in w and "rejected" in w for w in doc["warnings"])
     code, _, err = run([manifest, "--out", tmp_path / "d.toml", "--exclude", "nothere.jpg"], capsys)
     assert code == 2 and "not a photo of the manifest" in err
+
+
+def test_real_reader_rejects_a_blank_reference_photo(tmp_path, capsys):
+    # no stand-in here: the photo reader itself looks at a blank frame and rejects it
+    from PIL import Image
+
+    make_set(tmp_path)
+    for i, (name, _, _) in enumerate(GOOD):
+        (tmp_path / name).unlink()
+        Image.new("RGB", (320, 240), (40 + 20 * i, 40, 40)).save(tmp_path / name, format="JPEG")
+    out = tmp_path / "cal.toml"
+    code, stdout, err = run([tmp_path / "manifest.csv", "--out", out], capsys)
+    assert code == 2 and "was rejected" in err and err.count("\n") == 1 and not out.exists()
