@@ -141,3 +141,24 @@ def test_a_reader_that_raises_becomes_a_rejection(tmp_path, fake_core):
 
 def exploding_reader(path, instrument=None, calibration=None, overlay_dir=None):
     raise RuntimeError(f"boom\non {np.pi:.2f}")
+
+
+def test_a_stone_the_core_refuses_does_not_stop_the_batch(tmp_path, fake_core, monkeypatch):
+    from critline.batch import stones
+    from critline.errors import UsageError
+
+    def refusing(observations, liquid_ri=None):
+        if any(ri > 1.7 for o in observations for ri, _ in o.edges):
+            raise UsageError("edge 1.7180 above the contact liquid (impossible)")
+        return fake_core.fake_analyse(observations, liquid_ri)
+
+    monkeypatch.setattr(stones, "_core", lambda: (fake_core.FakeObservation, refusing,
+                                                  fake_core.fake_identify))
+    res = run_batch(make_parcel(tmp_path / "parcel"), out_dir=tmp_path / "out", workers=1,
+                    reader=fake_reader)
+    cushion, oval = res.stones
+    assert cushion.analysis is None and oval.analysis is not None
+    assert any("could not be reduced: edge 1.7180 above" in n for n in cushion.notes)
+    doc = batch_document(res)
+    assert doc["stones"][0]["flags"] == ["no_readings"] and doc["stones"][1]["candidates"]
+    assert res.exit_code == EXIT_OK  # every photo got a result; the finding is about the stone

@@ -13,6 +13,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from critline.batch.grouping import PhotoItem, StoneGroup
+from critline.errors import CritlineError
 from critline.readings import PhotoReading
 
 #: statuses that carry information about the stone (``no_edge`` too: nothing on the scale)
@@ -91,7 +92,21 @@ def analyse_stone(group: StoneGroup, photos: tuple[PhotoResult, ...], *,
         notes.append("polariser setting not known for any photo")
 
     _, analyse_session, identify = _core()
-    observations = [observation(p.item, p.reading) for p in usable]
-    analysis = analyse_session(observations, liquid_ri=liquid_ri)
-    identification = identify(analysis, sg=group.sg)
+    # the core refuses contradictory or impossible readings with an error; in a batch that is
+    # a finding about this stone, said in its notes, and the other stones go on
+    try:
+        observations = [observation(p.item, p.reading) for p in usable]
+        analysis = analyse_session(observations, liquid_ri=liquid_ri)
+    except (CritlineError, ValueError) as exc:
+        notes.append(f"the readings could not be reduced: {_one_line(exc)}")
+        return StoneResult(group.name, photos, None, None, tuple(notes), group.sg)
+    try:
+        identification = identify(analysis, sg=group.sg)
+    except (CritlineError, ValueError) as exc:
+        notes.append(f"no identification: {_one_line(exc)}")
+        identification = None
     return StoneResult(group.name, photos, analysis, identification, tuple(notes), group.sg)
+
+
+def _one_line(exc: BaseException) -> str:
+    return " ".join(str(exc).split()) or type(exc).__name__

@@ -28,7 +28,7 @@ from critline.errors import EXIT_OK, EXIT_REJECTED
 from critline.fileio import atomic_write_text
 from critline.instrument import DEFAULT
 from critline.readings import rejected
-from critline.report.document import batch_document, r4
+from critline.report.document import batch_document, candidate_name, r4
 
 SUMMARY_NAME = "watch-summary.json"
 
@@ -68,7 +68,7 @@ def describe_stone(stone: StoneResult) -> str:
     parts.append(char + (f" {sign}" if sign else ""))
     cands = tuple(getattr(ident, "candidates", ()) or ())
     if cands:
-        parts.append(f"leading: {cands[0].material} ({float(cands[0].score):.2f})")
+        parts.append(f"leading: {candidate_name(cands[0])} ({float(cands[0].score):.2f})")
     return ", ".join(parts)
 
 

@@ -56,7 +56,7 @@ def _stderr_console():
 def print_summary(result, console) -> None:
     from rich.table import Table
 
-    from critline.report.document import r4
+    from critline.report.document import candidate_name, r4
 
     table = Table(title=f"{len(result.stones)} stone(s) from {result.source}", title_justify="left")
     for col in ("stone", "photos", "RI range", "birefringence", "character", "sign", "leading candidate"):
@@ -78,7 +78,7 @@ def print_summary(result, console) -> None:
                       "-" if bi is None else f"{bi:.4f}",
                       getattr(a, "optic_character", None) or "undetermined",
                       getattr(a, "optic_sign", None) or "-",
-                      "-" if lead is None else f"{lead.material} ({float(lead.score):.2f})")
+                      "-" if lead is None else f"{candidate_name(lead)} ({float(lead.score):.2f})")
     console.print(table)
 
 

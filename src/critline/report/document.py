@@ -34,9 +34,20 @@ def _strs(values) -> list[str]:
     return [str(v) for v in (values or ())]
 
 
+def candidate_name(c) -> str:
+    """The material's name of a candidate (the core gives a Material with a ``key``)."""
+    material = getattr(c, "material", c)
+    return str(getattr(material, "key", material))
+
+
+def leading_candidate(identification):
+    cands = tuple(getattr(identification, "candidates", ()) or ())
+    return cands[0] if cands else None
+
+
 def candidate_json(c) -> dict:
     return {
-        "material": getattr(c, "material", str(c)),
+        "material": candidate_name(c),
         "aliases": _strs(getattr(c, "aliases", ())),
         "score": None if getattr(c, "score", None) is None else round(float(c.score), 3),
         "agrees": _strs(getattr(c, "agrees", ())),
@@ -81,8 +92,12 @@ def stone_json(stone) -> dict:
     if ident is not None:
         d["candidates"] = [candidate_json(c) for c in tuple(ident.candidates)[:MAX_CANDIDATES]]
         d["separating_tests"] = _strs(getattr(ident, "separating_tests", ()))
+        groups = tuple(getattr(ident, "groups", ()) or ())
+        d["leading_group"] = _strs(groups[0]) if groups else []
+        d["notes"] += _strs(getattr(ident, "notes", ()))
     else:
         d["separating_tests"] = []
+        d["leading_group"] = []
     d["readings"] = [reading_json(p) for p in stone.photos]
     return d
 

@@ -20,7 +20,7 @@ from pathlib import Path
 
 from critline import __version__, cautions
 from critline.report import svg
-from critline.report.document import MAX_CANDIDATES, r4
+from critline.report.document import MAX_CANDIDATES, candidate_name, r4
 
 #: longest side of an embedded photo, pixels
 THUMB_SIZE = 360
@@ -64,6 +64,7 @@ dl.facts dd{margin:0;font-variant-numeric:tabular-nums}
 ol.cands{list-style:none;padding:0;margin:0}
 ol.cands li{padding:6px 0;border-bottom:1px dotted var(--rule)}
 .cand-name{font-weight:600}
+.tie{font-size:12px;color:var(--high);margin-left:6px}
 .alias{color:var(--muted);font-size:13px}
 .meter{display:inline-block;width:90px;height:7px;background:var(--wash);margin:0 8px 0 4px;
 vertical-align:middle;border-radius:4px;overflow:hidden}
@@ -200,6 +201,8 @@ def _candidates(stone) -> str:
     if ident is None or not tuple(ident.candidates):
         return '<p class="pm">No candidates.</p>'
     items = []
+    groups = tuple(getattr(ident, "groups", ()) or ())
+    lead_group = set(groups[0]) if groups and len(groups[0]) > 1 else set()
     for c in tuple(ident.candidates)[:MAX_CANDIDATES]:
         score = float(getattr(c, "score", 0.0) or 0.0)
         score = min(1.0, max(0.0, score)) if math.isfinite(score) else 0.0
@@ -207,12 +210,17 @@ def _candidates(stone) -> str:
         why = "".join(f'<li class="agree">{_e(t)}</li>' for t in getattr(c, "agrees", ()) or ())
         why += "".join(f'<li class="conflict">{_e(t)}</li>' for t in getattr(c, "conflicts", ()) or ())
         items.append(
-            f'<li><span class="cand-name">{_e(c.material)}</span>'
+            f'<li><span class="cand-name">{_e(candidate_name(c))}</span>'
             + (f' <span class="alias">({_e(aliases)})</span>' if aliases else "")
+            + (' <span class="tie">near tie: not separated by these readings</span>'
+               if candidate_name(c) in lead_group else "")
             + f'<br><span class="meter"><span style="width:{score * 100:.0f}%"></span></span>'
             f'<span class="num">{score:.2f}</span>'
             + (f'<ul class="why">{why}</ul>' if why else "") + "</li>")
     out = '<ol class="cands">' + "".join(items) + "</ol>"
+    ident_notes = tuple(getattr(ident, "notes", ()) or ())
+    if ident_notes:
+        out += '<ul class="notes">' + "".join(f"<li>{_e(t)}</li>" for t in ident_notes) + "</ul>"
     tests = tuple(getattr(ident, "separating_tests", ()) or ())
     if tests:
         out += ("<h3>tests that would separate them</h3><ul class=\"tests\">"
@@ -318,7 +326,7 @@ def _glance(result) -> str:
             f'<td class="num">{_ri(getattr(a, "birefringence", None))}</td>'
             f'<td>{_e(getattr(a, "optic_character", None) or "undetermined")}</td>'
             f'<td>{_e(getattr(a, "optic_sign", None) or "—")}</td>'
-            f'<td>{_e(getattr(lead, "material", "—"))}</td></tr>')
+            f'<td>{_e(candidate_name(lead) if lead is not None else "—")}</td></tr>')
     return ('<table class="glance"><thead><tr><th>stone</th><th>RI range</th><th>birefringence</th>'
             '<th>optic character</th><th>sign</th><th>leading candidate</th></tr></thead><tbody>'
             + "".join(rows) + "</tbody></table>")

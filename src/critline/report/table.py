@@ -9,7 +9,7 @@ from __future__ import annotations
 import csv
 import io
 
-from critline.report.document import r4
+from critline.report.document import candidate_name, r4
 
 COLUMNS = (
     "row", "stone", "photo", "rotation", "polariser", "status",
@@ -42,7 +42,7 @@ def batch_rows(result) -> list[dict]:
             "optic_character": getattr(a, "optic_character", None) or "undetermined",
             "optic_sign": getattr(a, "optic_sign", None) or "",
             "over_limit": bool(getattr(a, "over_limit", False)),
-            "leading_candidate": getattr(lead, "material", ""),
+            "leading_candidate": "" if lead is None else candidate_name(lead),
             "score": None if lead is None else f"{float(lead.score):.3f}",
             "flags": " ".join(getattr(a, "flags", ()) or ()),
         })
