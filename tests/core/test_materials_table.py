@@ -134,3 +134,17 @@ def test_duplicate_keys_are_rejected():
 def test_missing_file_is_a_clear_error(tmp_path):
     with pytest.raises(MaterialsError, match="cannot read"):
         load_materials(tmp_path / "absent.toml")
+
+
+def test_core_imports_no_image_library():
+    # design.md: the identification core knows nothing of images
+    import subprocess
+    import sys
+
+    code = (
+        "import sys, critline.core; "
+        "bad = [m for m in ('cv2', 'PIL', 'skimage', 'critline.photo') if m in sys.modules]; "
+        "print(bad); sys.exit(1 if bad else 0)"
+    )
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
+    assert done.returncode == 0, done.stdout + done.stderr
