@@ -80,5 +80,5 @@ def write_photo(path, scene: Scene, seed: int, fmt: str | None = None, overwrite
     truth["seed"] = int(seed)
     truth["format"] = fmt
     atomic_write_bytes(path, data, overwrite=overwrite)
-    atomic_write_text(sidecar, json.dumps(truth, indent=1) + "\n", overwrite=overwrite)
+    atomic_write_text(sidecar, json.dumps(truth, separators=(",", ":")) + "\n", overwrite=overwrite)
     return sidecar
