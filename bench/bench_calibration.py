@@ -199,6 +199,9 @@ def run(args) -> int:
         print(f"calibrated error / stated uncertainty: RMS {np.sqrt(np.mean(z**2)):.2f}, "
               f"|z| > 2 in {100 * np.mean(np.abs(z) > 2):.1f} % (a Gaussian: 4.6 %)")
         print(f"ratio uncalibrated p95 / calibrated p95: {p95(err_nominal) / p95(err_cal):.1f}")
+        gross = int(np.sum(np.abs(err_cal) > 0.01))
+        print(f"calibrated readings off by more than 0.01 (misread edges, not calibration): {gross} "
+              f"of {len(err_cal)}")
     return 0
 
 
