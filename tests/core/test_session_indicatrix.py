@@ -192,3 +192,17 @@ def test_isotropic_series(name, seed, step, sigma, polariser):
     assert result.optic_character == "isotropic", result.notes
     assert result.optic_sign is None
     assert result.ri_low == pytest.approx(n, abs=4 * sigma)
+
+
+@common
+@given(name=st.sampled_from(sorted(UNIAXIAL) + sorted(BIAXIAL)), seed=st.integers(0, 2**32 - 1),
+       sigma=sigmas, count=st.integers(1, 2))
+def test_one_or_two_positions_cannot_decide(name, seed, sigma, count):
+    # fewer than three positions cannot show which edge is constant: "undetermined", with the reason
+    principal, _ = UNIAXIAL.get(name) or BIAXIAL[name]
+    rng = np.random.default_rng(seed)
+    _, _, observations = session(principal, rng, 180.0 / count, sigma, False)
+    result = analyse_session(observations)
+    assert result.optic_character == "undetermined"
+    assert result.optic_sign is None
+    assert "too_few_positions" in result.flags

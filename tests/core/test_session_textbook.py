@@ -194,7 +194,7 @@ def test_to_json_has_the_batch_fields():
     "observations, message",
     [
         ([], "no readings"),
-        ([Observation(edges=((1.54, 0.001),))] * 0, "no readings"),
+        ([Observation(label="blank.jpg"), Observation()], "no stone edge in any of the 2"),
     ],
 )
 def test_no_readings_is_an_error(observations, message):

@@ -395,6 +395,10 @@ def analyse_session(
     positions = _positions(edge_obs)
     n_positions = len(positions)
 
+    if not positions and not spot_obs and not over_limit:
+        raise ReadingError(
+            f"no stone edge in any of the {len(observations)} reading(s): nothing to analyse"
+        )
     if not positions:
         # only spot and/or over-the-limit readings
         if spot_obs:
