@@ -137,6 +137,9 @@ def test_a_reader_that_raises_becomes_a_rejection(tmp_path, fake_core):
     assert res.exit_code == EXIT_REJECTED
     assert len(res.problems) == 5
     assert all("RuntimeError" in p.reason for p in res.problems)
+    # a reader failure is no verdict on the photo: it is not cached, the next run tries again
+    res = run_batch(parcel, out_dir=tmp_path / "out", workers=1, reader=fake_reader)
+    assert res.counts["read"] == 5 and res.exit_code == EXIT_OK
 
 
 def exploding_reader(path, instrument=None, calibration=None, overlay_dir=None):
@@ -160,5 +163,5 @@ def test_a_stone_the_core_refuses_does_not_stop_the_batch(tmp_path, fake_core, m
     assert cushion.analysis is None and oval.analysis is not None
     assert any("could not be reduced: edge 1.7180 above" in n for n in cushion.notes)
     doc = batch_document(res)
-    assert doc["stones"][0]["flags"] == ["no_readings"] and doc["stones"][1]["candidates"]
+    assert doc["stones"][0]["flags"] == ["not_analysed"] and doc["stones"][1]["candidates"]
     assert res.exit_code == EXIT_OK  # every photo got a result; the finding is about the stone

@@ -11,7 +11,7 @@ from pathlib import Path
 from critline.batch.cache import ReadingCache, file_sha256
 from critline.batch.grouping import Grouping, Problem, group_photos
 from critline.batch.stones import PhotoResult, StoneResult, analyse_stone
-from critline.batch.work import ReadTask, default_reader, prepare_workers, read_many
+from critline.batch.work import ReadTask, default_reader, is_verdict, prepare_workers, read_many
 from critline.errors import EXIT_OK, EXIT_REJECTED
 from critline.instrument import DEFAULT, Instrument
 from critline.readings import rejected
@@ -81,7 +81,7 @@ def photo_problems(stones: tuple[StoneResult, ...]) -> list[Problem]:
 
 def run_batch(source: str | Path, *, calibration=None, instrument: Instrument | None = None,
               out_dir: str | Path, workers: int | None = None, fresh: bool = False,
-              name_pattern: str | None = None, reader=None,
+              name_pattern: str | None = None, reader=None, overlays: bool = True,
               on_progress: Callable[[int, int], None] | None = None,
               on_start: Callable[[int, int], None] | None = None) -> BatchResult:
     """Read every photo of a batch (in parallel, resumable), analyse and identify each stone.
@@ -103,6 +103,8 @@ def run_batch(source: str | Path, *, calibration=None, instrument: Instrument | 
         Ignore cached results (they are replaced by the new ones).
     name_pattern : str, optional
         File-name pattern for rotation and polariser (see :mod:`critline.batch.grouping`).
+    overlays : bool
+        Ask the reader for marked-up photos (the report's thumbnails); False is quicker.
     reader : callable, optional
         ``reader(path, instrument, calibration, overlay_dir) -> PhotoReading``;
         default :func:`critline.photo.read_photo`.  Must be picklable for workers > 1.
@@ -137,7 +139,7 @@ def run_batch(source: str | Path, *, calibration=None, instrument: Instrument | 
                 n_cached += 1
                 continue
             tasks.append(ReadTask(os.fspath(item.path), item.display, sha,
-                                  os.fspath(cache.overlay_dir(sha))))
+                                  os.fspath(cache.overlay_dir(sha)) if overlays else None))
 
     if on_start is not None:
         on_start(len(tasks), n_cached)
@@ -145,7 +147,7 @@ def run_batch(source: str | Path, *, calibration=None, instrument: Instrument | 
 
     def on_result(task, reading, overlay):
         results[task.display] = PhotoResult(items[task.display], reading, overlay)
-        if not reading.reason or not reading.reason.startswith("the reading process stopped"):
+        if is_verdict(reading):
             cache.put(reading, overlay)
         done_count[0] += 1
         if on_progress is not None:

@@ -23,7 +23,7 @@ from critline.batch.cache import ReadingCache, file_sha256
 from critline.batch.grouping import StoneGroup, group_folder
 from critline.batch.run import BatchResult, calibration_summary, photo_problems
 from critline.batch.stones import PhotoResult, StoneResult, analyse_stone
-from critline.batch.work import ReadTask, default_reader, read_one
+from critline.batch.work import ReadTask, default_reader, is_verdict, read_one
 from critline.errors import EXIT_OK, EXIT_REJECTED
 from critline.fileio import atomic_write_text
 from critline.instrument import DEFAULT
@@ -120,7 +120,8 @@ class _Watcher:
             return PhotoResult(item, hit[0], hit[1], cached=True)
         task = ReadTask(os.fspath(item.path), item.display, sha, os.fspath(self.cache.overlay_dir(sha)))
         reading, overlay = read_one(task, self.reader, self.instrument, self.calibration)
-        self.cache.put(reading, overlay)
+        if is_verdict(reading):
+            self.cache.put(reading, overlay)
         self.counts["read"] += 1
         return PhotoResult(item, reading, overlay)
 

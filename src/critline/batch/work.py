@@ -25,6 +25,19 @@ from critline.readings import PhotoReading, rejected
 
 Reader = Callable[..., PhotoReading]
 
+#: start of the reason when the reader raised instead of returning a verdict; such results are
+#: not cached (a fixed reader, or more memory, may read the photo next time)
+READER_FAILED = "could not be read ("
+#: start of the reason when a worker process died
+WORKER_DIED = "the reading process stopped"
+
+
+def is_verdict(reading: PhotoReading) -> bool:
+    """True when the reading is the reader's own result (worth caching), not a failure around it."""
+    reason = reading.reason or ""
+    return not (reading.status == "rejected" and reason.startswith((READER_FAILED, WORKER_DIED,
+                                                                    "not enough memory")))
+
 
 @dataclass(frozen=True)
 class ReadTask:
@@ -72,7 +85,7 @@ def read_one(task: ReadTask, reader: Reader, instrument, calibration) -> tuple[P
         reading = rejected(task.display, task.sha256, "not enough memory to read this photo")
     except Exception as exc:  # the batch goes on; the reason is kept in one line
         text = " ".join(str(exc).split()) or type(exc).__name__
-        reading = rejected(task.display, task.sha256, f"could not be read ({type(exc).__name__}: {text})")
+        reading = rejected(task.display, task.sha256, f"{READER_FAILED}{type(exc).__name__}: {text})")
     reading = replace(reading, photo=task.display, sha256=task.sha256)
     overlay = find_overlay(task.overlay_dir) if reading.status != "rejected" else None
     return reading, overlay
@@ -179,11 +192,11 @@ def read_many(tasks: Sequence[ReadTask], *, reader: Reader, instrument=None, cal
                     chunk_results = fut.result()
                 except BrokenProcessPool:
                     chunk_results = _all_rejected(
-                        tasks, idx, "the reading process stopped while this photo was in its "
-                        "share (crash or out of memory)")
+                        tasks, idx, f"{WORKER_DIED} while this photo was in its share "
+                        "(crash or out of memory)")
                 except Exception as exc:  # e.g. a result that cannot travel between processes
                     chunk_results = _all_rejected(
-                        tasks, idx, f"could not be read ({type(exc).__name__}: {exc})")
+                        tasks, idx, f"{READER_FAILED}{type(exc).__name__}: {exc})")
                 for i, res in zip(idx, chunk_results, strict=True):
                     done(i, res)
     return results  # type: ignore[return-value]

@@ -101,6 +101,8 @@ def batch(
     overwrite: bool = typer.Option(False, "--overwrite", help="Replace report.json/.csv/.html. Without it an "
                                    "earlier report is kept and the new one is written as report-2.*, report-3.*, ..."),
     workers: int | None = typer.Option(None, "--workers", min=1, help="Reading processes [default: all cores]."),
+    no_overlays: bool = typer.Option(False, "--no-overlays", help="Skip the marked-up photos (quicker; the "
+                                     "report then shows the photos as taken)."),
     name_pattern: str | None = typer.Option(None, "--name-pattern", help="Regular expression with named groups "
                                             "'rotation' and 'polariser' matched in file names [default matches "
                                             "r030_pol0.jpg, r030_pol90.jpg, r030_none.jpg]."),
@@ -143,7 +145,7 @@ def batch(
 
     try:
         result = run_batch(folder, calibration=cal, instrument=inst, out_dir=out_dir, workers=workers,
-                           fresh=fresh, name_pattern=name_pattern, on_start=on_start,
+                           fresh=fresh, name_pattern=name_pattern, overlays=not no_overlays, on_start=on_start,
                            on_progress=on_progress)
     finally:
         if progress is not None:

@@ -83,7 +83,7 @@ def stone_json(stone) -> dict:
         "flags": _strs(getattr(a, "flags", ())),
     }
     if a is None:
-        d["flags"].append("no_readings")
+        d["flags"].append("not_analysed" if used else "no_readings")
     d["birefringence_uncertainty"] = r4(getattr(a, "birefringence_uncertainty", None))
     d["beta"] = r4(getattr(a, "beta", None))
     d["spot_ri"] = r4(getattr(a, "spot_ri", None))
