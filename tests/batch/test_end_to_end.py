@@ -22,6 +22,8 @@ from PIL import Image
 from critline.cli import main
 
 pytestmark = pytest.mark.slow
+# the report's thumbnails need the reader's marked-up photos
+pytest.importorskip("critline.photo.overlay", reason="the photo reader's overlay writer is not in this tree yet")
 
 WIDTH, HEIGHT = 880, 660
 CASES = {c.name: c for c in sessions.cases()}
