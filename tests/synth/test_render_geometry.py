@@ -138,3 +138,26 @@ def test_mis_scaled_instrument_truth():
     assert abs(printed - 1.60) > 0.003
     assert truth["scale_error"] == {"offset": 0.004, "gain": 0.01}
     assert math.isclose(e["ri"], 1.60)
+
+
+def test_white_light_gives_a_coloured_fringe():
+    # The prism glass disperses more than the stone (Abbe number of N-LASF31A about 41,
+    # SCHOTT catalogue; quartz about 68, Ghosh 1999 formula), so blue light reaches total
+    # reflection at a lower D-line scale value than red: a coloured fringe at the edge.
+    from critline.synth.render import channel_profiles
+
+    scene = Scene(stone_ris=(1.5443,), light="white", stone_material="quartz", liquid_line=0.0)
+    s = np.linspace(1.52, 1.56, 401)
+    red, green, blue = channel_profiles(scene, s)
+
+    def onset(channel, level=0.9):
+        return s[np.argmax(channel >= level)]
+
+    # each channel mixes a band of wavelengths (and a little crosstalk), so compare where
+    # the channels come close to full brightness
+    assert onset(blue) < onset(green) < onset(red)
+    assert 0.002 < onset(red) - onset(blue) < 0.02
+    # far from the edge all channels agree (grey)
+    assert np.allclose([red[-1], green[-1], blue[-1]], 1.0)
+    sodium = brightness(Scene(stone_ris=(1.5443,), liquid_line=0.0), s)
+    assert s[np.argmax(sodium >= 0.999)] == pytest.approx(1.5443, abs=1e-4)

@@ -59,6 +59,8 @@ def photo(
             overrides["instrument"] = load_instrument(instrument)
         except InstrumentError as exc:
             raise UsageError(str(exc)) from None
+        except (TypeError, ValueError) as exc:  # wrong value types inside the TOML
+            raise UsageError(f"{instrument}: not a usable instrument file ({exc})") from None
     if clean:
         overrides.update(clean_overrides())
     if megapixels is not None:

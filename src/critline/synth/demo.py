@@ -21,6 +21,7 @@ from pathlib import Path
 
 import numpy as np
 
+from critline.errors import UsageError
 from critline.fileio import atomic_write_text
 from critline.instrument import Instrument
 from critline.optics import SODIUM_D_NM
@@ -82,6 +83,10 @@ def reference_values(ref: dict) -> list[float]:
 def write_demo(folder, overwrite: bool = False) -> list[Path]:
     """Render the whole demo scenario into ``folder``; returns the photos written."""
     folder = Path(folder)
+    if not overwrite:
+        existing = [p for p in (folder / "instrument.toml", folder / "parcel", folder / "references") if p.exists()]
+        if existing:
+            raise UsageError(f"{existing[0]}: already exists (refusing to overwrite; pass the overwrite option)")
     demo = load_demo()
     instrument = demo_instrument()
     rng = np.random.default_rng(DEMO_SEED)
@@ -90,7 +95,7 @@ def write_demo(folder, overwrite: bool = False) -> list[Path]:
                  f"step = {instrument.step}\nmedium_every = {instrument.medium_every}\n"
                  f"long_every = {instrument.long_every}\nlabelled_every = {instrument.labelled_every}\n"
                  f"liquid_ri = {instrument.liquid_ri}\n")
-    atomic_write_text(folder / "instrument.toml", inst_toml, overwrite=True)
+    atomic_write_text(folder / "instrument.toml", inst_toml, overwrite=overwrite)
     for k, stone in enumerate(demo["stone"]):
         base = _base(demo, instrument, rng)
         shots = [_phone(rng) for _ in PLAN]
@@ -113,5 +118,5 @@ def write_demo(folder, overwrite: bool = False) -> list[Path]:
     w = csv.writer(buf, lineterminator="\n")
     w.writerow(["photo", "known_ri", "material"])
     w.writerows(rows)
-    atomic_write_text(folder / "references" / "manifest.csv", buf.getvalue(), overwrite=True)
+    atomic_write_text(folder / "references" / "manifest.csv", buf.getvalue(), overwrite=overwrite)
     return written
