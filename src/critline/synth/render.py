@@ -246,6 +246,10 @@ def eyepiece_view(scene: Scene, ppu: float, rng: np.random.Generator | None = No
     return img, c0, extras
 
 
+#: Canonical-raster renderer for each ``Scene.view``.
+VIEW_RENDERERS = {"facet": eyepiece_view}
+
+
 # --------------------------------------------------------------------------- the phone
 def _motion_kernel(length: float, angle_deg: float) -> np.ndarray:
     n = int(math.ceil(length)) | 1
@@ -286,13 +290,15 @@ def _standard_normal(rng: np.random.Generator, shape) -> np.ndarray:
     return _normal_lut()[rng.integers(0, 65536, shape, dtype=np.uint16)]
 
 
-def phone_capture(linear: np.ndarray, scene: Scene, rng: np.random.Generator, colour: np.ndarray) -> np.ndarray:
+def phone_capture(linear: np.ndarray, scene: Scene, rng: np.random.Generator, colour: np.ndarray,
+                  region: tuple[int, int, int, int] | None = None) -> np.ndarray:
     """The phone's pipeline on the frame's linear light ``(channels, h, w)`` -> RGB uint8.
 
     Lens vignetting, defocus (Gaussian), motion blur (line kernel), exposure,
     sensor noise in linear light (shot noise ~ sqrt(electrons), read noise),
     clipping, edge-aware noise reduction, the sRGB tone curve and unsharp
-    masking, in that order.
+    masking, in that order.  ``region`` ``(x0, x1, y0, y1)``: where the field is (the
+    optical blur is applied around it only).
     """
     r = scene.field_radius_px
     h, w = linear.shape[1:]
@@ -306,13 +312,23 @@ def phone_capture(linear: np.ndarray, scene: Scene, rng: np.random.Generator, co
     out = np.empty((h, w, 3), np.uint8)
     mono = linear.shape[0] == 1
     blurred = []
+    # blur only around the field: elsewhere the frame is the smooth, dim surround, which
+    # blurring leaves as it is
+    reach = int(math.ceil(4 * scene.defocus * r + scene.motion * r)) + 2
+    if region is None:
+        region = (0, w, 0, h)
+    x0, x1 = max(region[0] - reach, 0), min(region[1] + reach, w)
+    y0, y1 = max(region[2] - reach, 0), min(region[3] + reach, h)
     for ch in range(linear.shape[0]):
         img = linear[ch]
-        if scene.defocus > 0:
-            img = cv2.GaussianBlur(img, (0, 0), scene.defocus * r, borderType=cv2.BORDER_REFLECT)
-        if scene.motion * r >= 1.0:
-            img = cv2.filter2D(img, -1, _motion_kernel(scene.motion * r, scene.motion_angle_deg),
-                               borderType=cv2.BORDER_REFLECT)
+        if x1 > x0 and y1 > y0 and (scene.defocus > 0 or scene.motion * r >= 1.0):
+            roi = np.ascontiguousarray(img[y0:y1, x0:x1])
+            if scene.defocus > 0:
+                roi = cv2.GaussianBlur(roi, (0, 0), scene.defocus * r, borderType=cv2.BORDER_REFLECT)
+            if scene.motion * r >= 1.0:
+                roi = cv2.filter2D(roi, -1, _motion_kernel(scene.motion * r, scene.motion_angle_deg),
+                                   borderType=cv2.BORDER_REFLECT)
+            img[y0:y1, x0:x1] = roi
         blurred.append(img)
     full_well = float(scene.full_well)
     for c in range(3):
@@ -329,9 +345,15 @@ def phone_capture(linear: np.ndarray, scene: Scene, rng: np.random.Generator, co
             diff = img - smooth
             scale = np.float32(3.0 * math.sqrt(scene.read_noise**2 + 0.25 * max(full_well, 1))
                                / max(full_well, 1) + 1e-3)
-            weight = cv2.exp(-(diff / scale) ** 2) * np.float32(scene.denoise)
-            img = smooth + diff * (1.0 - weight)
-            del smooth, diff, weight
+            # keep differences well above the noise (edges, graduations), smooth the rest
+            ratio = diff * np.float32(1.0 / scale)
+            ratio *= ratio
+            ratio += np.float32(1.0)
+            keep = np.float32(1.0) - np.float32(scene.denoise) / ratio
+            diff *= keep
+            img = smooth
+            img += diff
+            del diff, ratio, keep
             np.clip(img, 0.0, 1.0, out=img)
         tone = _tone(img)
         del img
@@ -364,7 +386,9 @@ def render(scene: Scene, seed: int) -> tuple[np.ndarray, dict]:
     to_frame = eyepiece_to_frame(scene)
     # canonical pixel size: about one frame pixel, so no detail is lost or invented
     ppu = scene.field_radius_px
-    view, c0, extras = eyepiece_view(scene, ppu, rng)
+    # one renderer per kind of view; the spot (distance) view of a droplet on a curved stone
+    # will be a second function with the same signature, registered in VIEW_RENDERERS
+    view, c0, extras = VIEW_RENDERERS[scene.view](scene, ppu, rng)
     canon_to_uv = np.array([[1 / ppu, 0, -c0 / ppu], [0, 1 / ppu, -c0 / ppu], [0, 0, 1.0]])
     h_total = to_frame @ canon_to_uv
     size = view.shape[-1]
@@ -382,12 +406,36 @@ def render(scene: Scene, seed: int) -> tuple[np.ndarray, dict]:
                 borderMode=cv2.BORDER_CONSTANT, borderValue=float(scene.surround))
     del view
     colour = colour_response.light_colour(scene.light, scene.white_balance)
-    image = phone_capture(linear, scene, rng, colour)
+    image = phone_capture(linear, scene, rng, colour, region=(x0, x1, y0, y1))
     return image, ground_truth(scene, extras)
 
 
 def ground_truth(scene: Scene, extras: dict | None = None) -> dict:
-    """The truth sidecar of a rendered scene (pixel positions in the displayed image)."""
+    """The truth sidecar of a rendered scene (pixel positions in the displayed image).
+
+    Keys
+    ----
+    schema : ``"critline.synth-truth/1"``
+    edges : list of dict, sorted by ``ri``
+        Edges in the field: ``ri`` (true index at 589.3 nm), ``kind`` (``stone`` or
+        ``liquid``), ``scale_position`` (graduation units from the first graduation of
+        the *printed* scale, where the onset of total reflection falls), ``field_position``
+        (``u``: distance from the field centre along the axis / field radius), ``pixel``
+        (where the edge crosses the scale's base line), ``contrast`` (1 - brightness 0.02
+        below the edge / brightness just above it, sodium light), ``weight`` (share of
+        the light in this ray), ``in_field``, ``on_scale``.
+    status : ``ok`` (a stone edge in the field), ``over_limit`` (only the liquid edge,
+        stone above the liquid) or ``no_edge``.
+    field : ``cx, cy`` (centroid of the projected field stop), ``r`` (radius of the circle
+        of equal area), ``clipped`` (the frame cuts the field).
+    axis_angle_deg : direction of increasing values at the field centre, degrees
+        (x right, y down).
+    graduations : per printed graduation ``index, printed, value`` (true value), ``kind``,
+        ``u``, ``base`` and ``tip`` pixels, ``in_field``.
+    homography : 3x3, eyepiece ``(u, v, 1)`` to frame pixels.
+    light, instrument, scale_error, prism, spacing_ratio, dust, size, params (the whole
+    :class:`Scene`; ``Scene.from_dict`` rebuilds it).
+    """
     smap = scale_map(scene)
     h = eyepiece_to_frame(scene)
     inst = scene.instrument
