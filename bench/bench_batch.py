@@ -10,7 +10,7 @@ runs gave the same readings.
 
 Usage::
 
-    python bench/bench_batch.py [--photos 24] [--megapixels 1.0] [--workers 2] [--keep DIR]
+    python bench/bench_batch.py [--photos 24] [--megapixels 1.0] [--workers 2] [--keep DIR] [--no-overlays]
 
 The machine's load average is printed too: other work on the same cores lowers
 the speed-up, and the figure is only meaningful on otherwise idle cores.
@@ -57,11 +57,11 @@ def render_parcel(folder: Path, n_photos: int, megapixels: float) -> int:
     return count
 
 
-def timed_batch(folder: Path, out: Path, workers: int):
+def timed_batch(folder: Path, out: Path, workers: int, overlays: bool = True):
     from critline.batch import run_batch
 
     t0 = time.perf_counter()
-    result = run_batch(folder, out_dir=out, workers=workers, fresh=True)
+    result = run_batch(folder, out_dir=out, workers=workers, fresh=True, overlays=overlays)
     return time.perf_counter() - t0, result
 
 
@@ -77,6 +77,7 @@ def main(argv=None) -> int:
     ap.add_argument("--megapixels", type=float, default=1.0)
     ap.add_argument("--workers", type=int, default=2)
     ap.add_argument("--keep", type=Path, default=None, help="render into this folder and keep it")
+    ap.add_argument("--no-overlays", action="store_true", help="do not write marked-up photos")
     args = ap.parse_args(argv)
 
     tmp = Path(tempfile.mkdtemp(prefix="critline-bench-batch-"))
@@ -88,15 +89,16 @@ def main(argv=None) -> int:
         print(f"cores available: {len(os.sched_getaffinity(0))}, load average before: "
               f"{', '.join(f'{x:.2f}' for x in os.getloadavg())}")
         # warm-up: imports and first-use caches, so neither timed run pays them alone
-        timed_batch(folder, tmp / "warm", 1)
-        t1, r1 = timed_batch(folder, tmp / "one", 1)
-        t2, r2 = timed_batch(folder, tmp / "many", args.workers)
+        overlays = not args.no_overlays
+        timed_batch(folder, tmp / "warm", 1, overlays)
+        t1, r1 = timed_batch(folder, tmp / "one", 1, overlays)
+        t2, r2 = timed_batch(folder, tmp / "many", args.workers, overlays)
         same = signature(r1) == signature(r2)
         statuses = {}
         for _, status, _ in signature(r1):
             statuses[status] = statuses.get(status, 0) + 1
         ratio = t1 / t2
-        print(f"photo results: {statuses}")
+        print(f"photo results: {statuses} (marked-up photos: {'yes' if overlays else 'no'})")
         print(f"one process:      {t1:7.2f} s  ({n / t1:5.2f} photos/s)")
         print(f"{args.workers} worker processes: {t2:7.2f} s  ({n / t2:5.2f} photos/s)")
         print(f"speed-up {args.workers} workers / one process: {ratio:.2f}x "

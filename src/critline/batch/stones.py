@@ -100,10 +100,17 @@ def analyse_stone(group: StoneGroup, photos: tuple[PhotoResult, ...], *,
     except (CritlineError, ValueError) as exc:
         notes.append(f"the readings could not be reduced: {_one_line(exc)}")
         return StoneResult(group.name, photos, None, None, tuple(notes), group.sg)
+    except Exception as exc:  # a fault in the core must not lose the other stones' results
+        notes.append(f"the readings could not be reduced (internal error {type(exc).__name__}: "
+                     f"{_one_line(exc)})")
+        return StoneResult(group.name, photos, None, None, tuple(notes), group.sg)
     try:
         identification = identify(analysis, sg=group.sg)
     except (CritlineError, ValueError) as exc:
         notes.append(f"no identification: {_one_line(exc)}")
+        identification = None
+    except Exception as exc:  # as above
+        notes.append(f"no identification (internal error {type(exc).__name__}: {_one_line(exc)})")
         identification = None
     return StoneResult(group.name, photos, analysis, identification, tuple(notes), group.sg)
 

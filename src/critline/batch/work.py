@@ -147,10 +147,23 @@ def prepare_workers(reader: Reader) -> None:
     if ctx.get_start_method() == "forkserver":
         from multiprocessing import forkserver
 
+        # one thread per worker: the processes are the parallelism, and numerical libraries
+        # read these at import (which happens in the server), so they are set for its start
+        saved = {k: os.environ.get(k) for k in _THREAD_VARIABLES}
+        os.environ.update({k: "1" for k in _THREAD_VARIABLES})
         try:
             forkserver.ensure_running()
         except OSError:
             pass  # the pool will try again and report
+        finally:
+            for k, v in saved.items():
+                if v is None:
+                    os.environ.pop(k, None)
+                else:
+                    os.environ[k] = v
+
+
+_THREAD_VARIABLES = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
 
 
 def read_many(tasks: Sequence[ReadTask], *, reader: Reader, instrument=None, calibration=None,
@@ -178,6 +191,7 @@ def read_many(tasks: Sequence[ReadTask], *, reader: Reader, instrument=None, cal
             done(i, read_one(t, reader, instrument, calibration))
         return results  # type: ignore[return-value]
 
+    prepare_workers(reader)
     size = chunk_size(len(tasks), workers)
     chunks = [list(range(i, min(i + size, len(tasks)))) for i in range(0, len(tasks), size)]
     with ProcessPoolExecutor(max_workers=min(workers, len(chunks)), mp_context=_context(reader),
