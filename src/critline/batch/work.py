@@ -13,6 +13,7 @@ from __future__ import annotations
 import math
 import multiprocessing
 import os
+import warnings
 from collections.abc import Callable, Sequence
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 from concurrent.futures.process import BrokenProcessPool
@@ -78,7 +79,11 @@ def read_one(task: ReadTask, reader: Reader, instrument, calibration) -> tuple[P
     try:
         if task.overlay_dir is not None:
             Path(task.overlay_dir).mkdir(parents=True, exist_ok=True)
-        reading = reader(Path(task.path), instrument, calibration, task.overlay_dir)
+        with warnings.catch_warnings():
+            # numerical warnings inside the reader are not messages for the user: what
+            # matters reaches the reading as flags, uncertainty or a rejection
+            warnings.simplefilter("ignore", RuntimeWarning)
+            reading = reader(Path(task.path), instrument, calibration, task.overlay_dir)
         if not isinstance(reading, PhotoReading):
             raise TypeError(f"reader returned {type(reading).__name__}, not a PhotoReading")
     except MemoryError:

@@ -72,7 +72,7 @@ def print_summary(result, console) -> None:
         else:
             ri = f"{lo:.4f} - {hi:.4f}" if hi is not None else f"{lo:.4f}"
         u = r4(getattr(a, "uncertainty", None))
-        if u is not None and lo is not None:
+        if u is not None and lo is not None and not getattr(a, "over_limit", False):
             ri += f" (± {u:.4f})"
         table.add_row(s.name, f"{len(s.usable)}/{len(s.photos)}", ri,
                       "-" if bi is None else f"{bi:.4f}",

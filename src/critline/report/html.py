@@ -319,8 +319,13 @@ def _glance(result) -> str:
     for i, s in enumerate(result.stones, start=1):
         a, ident = s.analysis, s.identification
         lead = tuple(ident.candidates)[0] if ident is not None and tuple(ident.candidates) else None
-        ri = ("over the limit" if getattr(a, "over_limit", False) else
-              f"{_ri(getattr(a, 'ri_low', None))} – {_ri(getattr(a, 'ri_high', None))}")
+        if a is None:
+            ri = "not analysed"
+        elif getattr(a, "over_limit", False):
+            ri = "over the limit"
+        else:
+            lo, hi = _ri(getattr(a, "ri_low", None)), _ri(getattr(a, "ri_high", None))
+            ri = lo if hi in ("—", lo) else f"{lo} – {hi}"
         rows.append(
             f'<tr><td><a href="#stone-{i}">{_e(s.name)}</a></td><td class="num">{_e(ri)}</td>'
             f'<td class="num">{_ri(getattr(a, "birefringence", None))}</td>'
