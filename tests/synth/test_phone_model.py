@@ -35,7 +35,7 @@ def test_sensor_noise_is_shot_plus_read_noise_in_linear_light():
     rng = np.random.default_rng(0)
     full_well, read = 2000.0, 4.0
     scene = Scene(full_well=full_well, read_noise=read, denoise=0.0, sharpen=0.0, vignetting=0.0,
-                  exposure=1.0, white_balance=1.0)
+                  exposure=1.0, white_balance=1.0, bayer=False)
     for level in (0.05, 0.2, 0.5):
         flat = np.full((1, 300, 300), level, np.float32)
         out = phone_capture(flat, scene, rng, np.ones(3))
@@ -61,3 +61,16 @@ def test_dust_specks_are_drawn_and_recorded():
     assert len(truth["dust"]) == 6
     assert (dusty.astype(int) - clean.astype(int)).min() < -20  # dark specks
     assert (dusty.astype(int) - clean.astype(int)).max() <= 1
+
+
+def test_bayer_mosaic_keeps_levels_and_colour():
+    rng = np.random.default_rng(1)
+    scene = Scene(full_well=3000.0, denoise=0.0, sharpen=0.0, vignetting=0.0, exposure=1.0, bayer=True)
+    colour = np.array([1.0, 0.6, 0.1])  # a sodium-like cast
+    flat = np.full((1, 200, 200), 0.4, np.float32)
+    lin = _linear(phone_capture(flat, scene, rng, colour))
+    assert lin.reshape(-1, 3).mean(axis=0) == pytest.approx(0.4 * colour, rel=0.03, abs=0.003)
+    # demosaicing interpolates, so neighbouring pixels' noise is correlated
+    g = lin[..., 1] - lin[..., 1].mean()
+    corr = (g[:, 1:] * g[:, :-1]).mean() / g.var()
+    assert corr > 0.1

@@ -331,15 +331,39 @@ def phone_capture(linear: np.ndarray, scene: Scene, rng: np.random.Generator, co
             img[y0:y1, x0:x1] = roi
         blurred.append(img)
     full_well = float(scene.full_well)
-    for c in range(3):
-        img = blurred[0 if mono else c] * np.float32(scene.exposure * colour[c] * max(full_well, 1.0))
+    electrons_per_unit = np.float32(max(full_well, 1.0))
+    gains = [np.float32(scene.exposure * colour[c]) * electrons_per_unit for c in range(3)]
+
+    def exposed(c):
+        return blurred[0 if mono else c] * gains[c]
+
+    def add_noise(img):  # img in electrons -> normalised 0..1 with shot and read noise
         if full_well > 0:
-            # img is in electrons here
             sigma = cv2.sqrt(cv2.max(img, 0.0) + np.float32(scene.read_noise**2))
-            img += sigma * _standard_normal(rng, (h, w))
-            del sigma
-        img *= np.float32(1.0 / max(full_well, 1.0))
-        np.clip(img, 0.0, 1.0, out=img)
+            img += sigma * _standard_normal(rng, img.shape)
+        img *= np.float32(1.0) / electrons_per_unit
+        return np.clip(img, 0.0, 1.0, out=img)
+
+    if scene.bayer:
+        # RGGB colour filter mosaic: one channel per photosite, noise per photosite, then the
+        # phone's demosaicing (bilinear, OpenCV) on 16-bit raw values
+        mosaic = np.empty((h, w), np.float32)
+        mosaic[0::2, 0::2] = blurred[0][0::2, 0::2] * gains[0]
+        mosaic[0::2, 1::2] = blurred[0 if mono else 1][0::2, 1::2] * gains[1]
+        mosaic[1::2, 0::2] = blurred[0 if mono else 1][1::2, 0::2] * gains[1]
+        mosaic[1::2, 1::2] = blurred[0 if mono else 2][1::2, 1::2] * gains[2]
+        raw = (add_noise(mosaic) * np.float32(65535.0) + np.float32(0.5)).astype(np.uint16)
+        del mosaic
+        rgb = cv2.demosaicing(raw, cv2.COLOR_BayerBG2RGB)  # R at even rows and columns
+        del raw
+        planes = [rgb[..., c] for c in range(3)]
+    else:
+        planes = None
+    for c in range(3):
+        if planes is not None:
+            img = planes[c].astype(np.float32) * np.float32(1.0 / 65535.0)
+        else:
+            img = add_noise(exposed(c))
         if scene.denoise > 0:
             smooth = cv2.GaussianBlur(img, (0, 0), 0.8 + 1.5 * scene.denoise)
             diff = img - smooth

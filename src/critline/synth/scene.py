@@ -74,6 +74,7 @@ class Scene:
     exposure: float = 0.85                    # linear gain; > ~1.1 clips the bright field
     full_well: float = 4000.0                 # electrons at brightness 1 (0: no noise)
     read_noise: float = 3.0                   # electrons
+    bayer: bool = True                        # colour filter mosaic and demosaicing
     denoise: float = 0.3                      # phone noise reduction, 0..1
     sharpen: float = 0.4                      # phone sharpening amount
     white_balance: float = 0.5                # how far the phone neutralises the light's colour
@@ -241,6 +242,6 @@ def random_scene(seed: int, **overrides) -> Scene:
 
 def clean_overrides() -> dict:
     """Overrides that remove every degradation of the phone (for exact measurements)."""
-    return dict(tilt_deg=0.0, defocus=0.0, motion=0.0, full_well=0.0, denoise=0.0, sharpen=0.0,
+    return dict(tilt_deg=0.0, defocus=0.0, motion=0.0, full_well=0.0, bayer=False, denoise=0.0, sharpen=0.0,
                 vignetting=0.0, crescent=0.0, dust=0, exposure=0.8, field_falloff=0.0,
                 illumination_slope=0.0, orientation=1, jpeg_quality=95)
