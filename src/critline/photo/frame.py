@@ -77,6 +77,14 @@ class FieldFrame:
         r = self.reduce
         return x * r + (r - 1) / 2, y * r + (r - 1) / 2
 
+    def from_photo(self, x, y):
+        """Frame coordinates (row i, column j) of full-size photo point(s) (x, y)."""
+        r = self.reduce
+        xw = (np.asarray(x, float) - (r - 1) / 2) / r - self.cx
+        yw = (np.asarray(y, float) - (r - 1) / 2) / r - self.cy
+        c, s = np.cos(self.angle), np.sin(self.angle)
+        return xw * c + yw * s + self.half, -xw * s + yw * c + self.half
+
     def flipped(self) -> FieldFrame:
         """The same frame with the axis direction reversed (u -> -u, v -> -v)."""
         return FieldFrame(self.grey[::-1, ::-1], self.rgb[::-1, ::-1], self.inside[::-1, ::-1],

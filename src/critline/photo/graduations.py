@@ -113,14 +113,19 @@ class Graduations:
         return np.sqrt(np.clip(var_row, 0, None)) / np.abs(slope)
 
 
-def normalised(grey: np.ndarray, inside: np.ndarray, radius: float) -> np.ndarray:
-    """Relative darkness: 1 - grey / local mean (dark lines positive), 0 outside the field."""
+def normalised(grey: np.ndarray, inside: np.ndarray, radius: float, relative: bool = True) -> np.ndarray:
+    """Darkness against the local mean (dark lines positive), 0 outside the field.
+
+    ``relative``: 1 - grey / local mean (same depth for a line in the bright and
+    the dark part); else local mean - grey (the bright part, where lines are
+    seen best, weighs most).
+    """
     sigma = max(3.0, radius / 40)
     w = inside.astype(np.float32)
     num = cv2.GaussianBlur(grey * w, (0, 0), sigma)
     den = cv2.GaussianBlur(w, (0, 0), sigma)
     local = num / np.maximum(den, 1e-3)
-    out = 1.0 - grey / np.maximum(local, 1e-3)
+    out = 1.0 - grey / np.maximum(local, 1e-3) if relative else local - grey
     out[~inside] = 0.0
     return out.astype(np.float32)
 
@@ -128,54 +133,55 @@ def normalised(grey: np.ndarray, inside: np.ndarray, radius: float) -> np.ndarra
 def find_column(dark: np.ndarray, inside: np.ndarray, radius: float, count: int = 51) -> GraduationColumn:
     """The most periodic band of columns and its period (FFT along the axis).
 
-    ``count`` graduations must fit within the field's diameter, which bounds
-    the period from above (so the long graduations' own period is not taken).
+    The darkness is first averaged across a few columns (graduations are
+    coherent across the axis over their length, noise is not).  For each
+    column the power spectrum along the rows is taken; its score is the
+    fraction of the column's high-frequency power that lies within +-15 % of
+    its strongest frequency in the band of possible periods.  ``count``
+    graduations must fit within the field's diameter, which bounds the period
+    from above (so the long graduations' own period is not taken).
     """
     n = dark.shape[0]
     half = n // 2
     chord = int(0.8 * radius)
     rows = slice(max(0, half - chord), min(n, half + chord))
-    block = dark[rows]
-    spec = np.abs(np.fft.rfft(block, axis=0)) ** 2
+    kv = max(3, int(0.03 * radius))
+    block = cv2.blur(dark[rows], (kv, 1))
     m = block.shape[0]
+    cols_valid = inside[rows].mean(axis=0) > 0.5
+    if cols_valid.sum() < 10 or m < 32:
+        raise GraduationsNotFound("field too small to hold graduations")
+    block = block - block.mean(axis=0, keepdims=True)
+    spec = np.abs(np.fft.rfft(block * np.hanning(m)[:, None], axis=0)) ** 2
     freqs = np.arange(spec.shape[0]) / m  # cycles per pixel
     lo_f, hi_f = 1.0 / max(6.0, 2.1 * radius / max(count - 1, 1)), 1.0 / 2.8
-    band = (freqs >= lo_f) & (freqs <= hi_f)
-    if band.sum() < 3:
+    band = np.flatnonzero((freqs >= lo_f) & (freqs <= hi_f))
+    if len(band) < 3:
         raise GraduationsNotFound("field too small to hold graduations")
-    cols_valid = inside[rows].mean(axis=0) > 0.5
-    if cols_valid.sum() < 10:
-        raise GraduationsNotFound("field too small to hold graduations")
-    # column score: peak power in the band relative to the column's high-frequency power
-    hf = spec[freqs >= lo_f].sum(axis=0) + 1e-12
-    # mean spectrum of the most structured columns finds the period
-    colpow = spec[band].sum(axis=0) / hf
-    colpow[~cols_valid] = 0
-    top = np.argsort(colpow)[-max(3, n // 100):]
-    mean_spec = spec[:, top].mean(axis=1)
-    kb = np.flatnonzero(band)
-    k_peak = int(kb[np.argmax(mean_spec[kb])])
-    # parabolic refinement of the spectral peak
-    if 0 < k_peak < len(mean_spec) - 1:
-        a, b, c = mean_spec[k_peak - 1:k_peak + 2]
-        den = a - 2 * b + c
-        k_ref = k_peak + (0.5 * (a - c) / den if den < 0 else 0.0)
-    else:
-        k_ref = float(k_peak)
-    period = m / k_ref
-    near = (np.arange(spec.shape[0]) >= 0.8 * k_ref) & (np.arange(spec.shape[0]) <= 1.25 * k_ref)
-    score = spec[near].sum(axis=0) / hf
+    hf = spec[freqs >= 0.5 * lo_f].sum(axis=0) + 1e-20
+    # strongest frequency per column (spectrum smoothed over a few bins: the spacing varies)
+    sm = cv2.blur(spec.astype(np.float32), (1, 3))
+    k_best = band[np.argmax(sm[band], axis=0)]
+    kk = np.arange(spec.shape[0])[:, None]
+    near = (kk >= 0.85 * k_best[None, :]) & (kk <= 1.15 * k_best[None, :])
+    score = (spec * near).sum(axis=0) / hf
     score[~cols_valid] = 0
     score = np.convolve(score, np.ones(3) / 3, mode="same")
     best = int(np.argmax(score))
+    kb = int(k_best[best])
+    col_spec = spec[:, max(0, best - 1):best + 2].mean(axis=1)
+    win = np.arange(max(1, int(0.85 * kb)), min(len(col_spec) - 1, int(np.ceil(1.15 * kb))) + 1)
+    k_ref = float(np.sum(win * col_spec[win]) / max(np.sum(col_spec[win]), 1e-20))  # power centroid
+    period = m / k_ref
     med = float(np.median(score[cols_valid])) + 1e-12
     periodicity = float(score[best] / med)
     thr = med + 0.5 * (score[best] - med)
+    same = np.abs(k_best - kb) <= max(1, 0.15 * kb)
     lo = best
-    while lo > 0 and score[lo - 1] > thr:
+    while lo > 0 and score[lo - 1] > thr and same[lo - 1]:
         lo -= 1
     hi = best
-    while hi < n - 1 and score[hi + 1] > thr:
+    while hi < n - 1 and score[hi + 1] > thr and same[hi + 1]:
         hi += 1
     return GraduationColumn(float(period), int(lo), int(hi), periodicity)
 
@@ -355,7 +361,7 @@ def find_graduations(frame: FieldFrame, instrument: Instrument, dark: np.ndarray
     coef_rel, _, _ = _fit(k, pos, deg)
     offset, margin, phase_margin, details = _identify(k, pos, lengths, coef_rel, profile, local_noise,
                                                       frame, col, instrument)
-    if margin < 2.0:
+    if margin < 1.0:
         raise GraduationsNotFound(
             f"graduations found but their values are ambiguous (identification margin {margin:.1f})")
     k = k + offset
@@ -366,8 +372,13 @@ def find_graduations(frame: FieldFrame, instrument: Instrument, dark: np.ndarray
         raise GraduationsNotFound("graduations not found (too few lines on the scale)")
     end_low, end_high = details["end_low"], details["end_high"]
     pattern_margin = phase_margin
-    # refit in absolute index with values increasing down the rows
+    # refit in absolute index with values increasing down the rows, dropping outliers
     coef, cov, res = _fit(k, pos, deg)
+    sigma = 1.4826 * float(np.median(np.abs(res))) + 0.02
+    good = np.abs(res) < max(3.5 * sigma, 0.05 * col.period)
+    if good.sum() >= deg + 4 and not good.all():
+        pos, k, lengths, prom = pos[good], k[good], lengths[good], prom[good]
+        coef, cov, res = _fit(k, pos, deg)
     # expected graduations inside the usable field along the column
     allk = np.arange(count)
     rows_all = np.polynomial.polynomial.polyval(allk, coef)
@@ -389,6 +400,29 @@ def find_graduations(frame: FieldFrame, instrument: Instrument, dark: np.ndarray
                        figures, tuple(flags)), frame
 
 
+def _pattern_score(lengths, absolute, long_every, medium_every, scale):
+    """How well measured lengths follow the long/medium/short pattern for these absolute indices.
+
+    Medians per class, so a few spurious or badly measured lines do not count:
+    ``min(long - medium, medium - short) + 0.25 (long - short)``, relative to
+    ``scale``.  Near 0.4-0.7 for the right phase, at most about 0 for a wrong one.
+    """
+    if len(lengths) < 6:
+        return 0.0
+    is_long = (absolute % long_every == 0) if long_every else np.zeros(len(absolute), bool)
+    is_med = ((absolute % medium_every == 0) & ~is_long) if medium_every else np.zeros(len(absolute), bool)
+    is_short = ~(is_long | is_med)
+    if is_short.sum() < 3 or not (is_long.any() or is_med.any()):
+        return 0.0
+    ms = float(np.median(lengths[is_short]))
+    ml = float(np.median(lengths[is_long])) if is_long.any() else None
+    mm = float(np.median(lengths[is_med])) if is_med.any() else None
+    if ml is not None and mm is not None:
+        return (min(ml - mm, mm - ms) + 0.25 * (ml - ms)) / scale
+    top = ml if ml is not None else mm
+    return 1.25 * (top - ms) / scale
+
+
 def _identify(k, pos, lengths, coef, profile, noise, frame, col, instrument):
     """Absolute index of the graduations: the offset ``c`` with absolute index ``k + c``.
 
@@ -406,40 +440,53 @@ def _identify(k, pos, lengths, coef, profile, noise, frame, col, instrument):
     base = int(round(instrument.first / instrument.step))
     le, me = instrument.long_every or 0, instrument.medium_every or 0
     period = col.period
-    lnorm = (lengths - np.median(lengths)) / max(float(np.median(lengths)), 1.0)
     m = np.arange(int(k.min()) - count - 12, int(k.max()) + count + 12)
     rows = np.polynomial.polynomial.polyval(m, coef)
     ri = np.round(rows).astype(int)
     usable = (ri > period) & (ri < n - period)
     ri_c = np.clip(ri, 0, n - 1)
     usable &= frame.inside[ri_c, col.v_lo:col.v_hi + 1].mean(axis=1) >= 0.9
-    w = max(1, int(round(0.25 * period)))
-    win = np.clip(ri_c[:, None] + np.arange(-w, w + 1)[None, :], 0, n - 1)
-    z = np.clip(profile[win].max(axis=1) / np.maximum(noise[ri_c], 1e-6), -2, 5)
-    z = np.where(usable, z, 0.0)
-    scores = {}
-    pattern = {}
+    # line contrast at each predicted row (darkest within +-1 px against the mean half a period
+    # away), relative to the typical contrast of the lines found: about 1 where a line is, about 0
+    # where none is, whatever the noise
+    h2 = max(2, int(round(0.5 * period)))
+    win = np.clip(ri_c[:, None] + np.arange(-1, 2)[None, :], 0, n - 1)
+    side = 0.5 * (profile[np.clip(ri_c - h2, 0, n - 1)] + profile[np.clip(ri_c + h2, 0, n - 1)])
+    contrast = profile[win].max(axis=1) - side
+    found = np.clip(np.round(pos).astype(int), 0, n - 1)
+    found_side = 0.5 * (profile[np.clip(found - h2, 0, n - 1)] + profile[np.clip(found + h2, 0, n - 1)])
+    typical = max(float(np.median(profile[found] - found_side)), 1e-6)
+    z = np.clip(contrast / typical, -0.5, 1.0)
+    # evidence per predicted position: +1 for a clear line, down to -1 for no line where one
+    # would be seen.  Beyond the lines found, "would be seen" means: the lines found at that end
+    # are clear and the field there is about as bright (a line missing in the dark says nothing)
+    band_level = cv2.GaussianBlur(frame.grey[:, col.v_lo:col.v_hi + 1].mean(axis=1).astype(np.float32)
+                                  .reshape(-1, 1), (1, 0), sigmaX=0, sigmaY=max(1.0, period)).ravel()
+    contr_found = (profile[found] - found_side) / typical
+    vis = np.zeros(len(m))
+    for side_sign, sel in ((-1, m < k.min()), (1, m > k.max())):
+        end_idx = np.argsort(k)[:3] if side_sign < 0 else np.argsort(k)[-3:]
+        strength = float(np.clip(np.median(contr_found[end_idx]), 0, 1))
+        b_end = float(np.median(band_level[found[end_idx]]))
+        ratio = band_level[ri_c[sel]] / max(b_end, 1e-6)
+        vis[sel] = strength * np.clip((ratio - 0.5) / 0.4, 0, 1)
+    present = z >= 0.5
+    evidence = np.where(present, 1.0, (2 * np.clip(z, 0, 1) - 1) * vis)
+    evidence = np.where(usable, evidence, 0.0)
+    med_all = max(float(np.median(lengths)), 1.0)
+    scores, pattern, templates = {}, {}, {}
     for c in range(-int(k.max()) - 2, count + 2 - int(k.min())):
         absm = m + c
         on = (absm >= 0) & (absm <= count - 1)
-        tmpl = float(np.sum(np.where(on, z, -z)))
-        absk = k + c
-        if le or me:
-            absolute = absk + base
-            expect = np.zeros(len(absk))
-            if me:
-                expect[absolute % me == 0] = 1.0
-            if le:
-                expect[absolute % le == 0] = 2.0
-            ok = (absk >= 0) & (absk <= count - 1)
-            if ok.sum() >= 6 and expect[ok].std() > 0 and lnorm[ok].std() > 0:
-                corr = float(np.corrcoef(lnorm[ok], expect[ok])[0, 1])
-            else:
-                corr = 0.0
-        else:
-            corr = 0.0
+        tmpl = float(np.sum(np.where(on, evidence, -evidence)))
+        # the pattern over all lines found (it is periodic; the range is the template's business)
+        corr = _pattern_score(lengths, k + c + base, le, me, med_all)
         pattern[c] = corr
-        scores[c] = tmpl + 10.0 * corr
+        templates[c] = tmpl
+        # weak prior: an eyepiece centres its scale in the field stop (a few tenths of a radius)
+        mid_row = np.polynomial.polynomial.polyval((count - 1) / 2 - c, coef)
+        centring = ((mid_row - frame.half) / (0.15 * frame.radius)) ** 2
+        scores[c] = tmpl + 20.0 * corr - min(centring, 25.0)
     order = sorted(scores, key=scores.get, reverse=True)
     best = order[0]
     margin = scores[best] - scores[order[1]] if len(order) > 1 else np.inf
@@ -455,8 +502,10 @@ def _identify(k, pos, lengths, coef, profile, noise, frame, col, instrument):
             return False
         if frame.inside[r, col.v_lo:col.v_hi + 1].mean() < 0.9:
             return False
-        return profile[max(0, r - w):r + w + 1].max() < 2 * noise[r]
+        side_r = 0.5 * (profile[max(0, r - h2)] + profile[min(n - 1, r + h2)])
+        return (profile[max(0, r - 1):r + 2].max() - side_r) < 0.3 * typical
 
     details = {"end_low": bool(_seen_empty(low_row)), "end_high": bool(_seen_empty(high_row)),
-               "score": scores[best]}
+               "score": scores[best],
+               "top": [(c, round(templates[c], 2), round(pattern[c], 3)) for c in order[:6]]}
     return best, float(margin), float(phase_margin), details

@@ -177,7 +177,12 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
         flags.append("field_clipped")
     dark = normalised(frame.grey, frame.inside, frame.radius)
     try:
-        col = find_column(dark, frame.inside, frame.radius, inst.count)
+        # absolute darkness favours the bright part (best signal to noise), relative darkness
+        # counts the lines in the dark part as much: keep the more periodic answer
+        col_abs = find_column(normalised(frame.grey, frame.inside, frame.radius, relative=False),
+                              frame.inside, frame.radius, inst.count)
+        col_rel = find_column(dark, frame.inside, frame.radius, inst.count)
+        col = col_abs if col_abs.periodicity >= col_rel.periodicity else col_rel
     except GraduationsNotFound as exc:
         return _no_graduations(photo, name, str(exc), figures, flags, calibration), evidence
     exclude = int(max(0.35 * frame.radius, 3 * (col.v_hi - col.v_lo + 1)))
@@ -207,8 +212,17 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
     values = inst.first + inst.step * idx
     try:
         analysis = _analyse(values, bright, noise, inst.liquid_ri, rgb_p)
-    except (ValueError, FloatingPointError, np.linalg.LinAlgError, RuntimeError) as exc:
-        raise PhotoRejected(f"edge analysis failed ({type(exc).__name__}: {exc})") from None
+    except (ValueError, FloatingPointError, np.linalg.LinAlgError, RuntimeError):
+        # once more on a window ending one graduation above the scale (the fit is more
+        # fragile far beyond it)
+        keep = values <= inst.last + inst.step
+        values, bright, noise, rgb_p, idx = values[keep], bright[keep], noise[keep], rgb_p[:, keep], idx[keep]
+        ok = ok.copy()
+        ok[np.flatnonzero(ok)[~keep]] = False
+        try:
+            analysis = _analyse(values, bright, noise, inst.liquid_ri, rgb_p)
+        except (ValueError, FloatingPointError, np.linalg.LinAlgError, RuntimeError) as exc:
+            raise PhotoRejected(f"edge analysis failed ({type(exc).__name__}: {exc})") from None
     evidence["profile"] = (values, bright)
     evidence["analysis"] = analysis
     if "direction_undetermined" in flags and analysis.edges:
