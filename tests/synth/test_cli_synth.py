@@ -36,3 +36,19 @@ def test_help_shows_cautions(capsys):
     assert main(["synth", "photo", "--help"]) == 0
     text = " ".join(capsys.readouterr().out.split())
     assert "Contact liquids" in text and cautions.HELP_EPILOG.split()[1] in text
+
+
+def test_stone_command_writes_a_session(tmp_path, capsys):
+    folder = tmp_path / "stone"
+    code = main(["synth", "stone", str(folder), "--principal", "1.5443", "--principal", "1.5443",
+                 "--principal", "1.5534", "--rotations", "0,90", "--megapixels", "0.08"])
+    assert code == 0
+    names = sorted(p.name for p in folder.glob("*.jpg"))
+    assert names == ["r000_none.jpg", "r000_pol0.jpg", "r000_pol90.jpg",
+                     "r090_none.jpg", "r090_pol0.jpg", "r090_pol90.jpg"]
+    truth = json.loads((folder / "r090_pol90.json").read_text())
+    assert truth["session"]["rotation"] == 90 and truth["session"]["polariser"] == 90
+    assert main(["synth", "stone", str(folder), "--principal", "1.6"]) == 2
+    assert main(["synth", "stone", str(tmp_path / "x"), "--principal", "1.6", "--principal", "1.6",
+                 "--principal", "1.6", "--rotations", "a,b"]) == 2
+    assert "Traceback" not in capsys.readouterr().err

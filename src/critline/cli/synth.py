@@ -80,6 +80,49 @@ def photo(
     typer.echo(f"{sidecar}")
 
 
+@synth_app.command("stone", epilog=cautions.HELP_EPILOG)
+def stone(
+    folder: Path = typer.Argument(..., help="Folder for the stone's photos (rRRR_pol0.jpg, rRRR_pol90.jpg, rRRR_none.jpg)."),
+    principal: list[float] = typer.Option(..., "--principal", help="Principal index at 589.3 nm; give three (isotropic: n n n; uniaxial: o o e)."),
+    facet: tuple[float, float, float] = typer.Option((0.6, 0.3, 0.74), "--facet", help="Table facet normal in the frame of the principal axes."),
+    rotations: str = typer.Option("0,45,90,135", "--rotations", help="Comma-separated stone rotations, degrees."),
+    seed: int = typer.Option(0, "--seed", help="Seed of the phone's variation between shots and of the noise."),
+    light: str = typer.Option("sodium", "--light", help="sodium | white"),
+    liquid: float = typer.Option(1.79, "--liquid", help="Contact liquid index at 589.3 nm."),
+    megapixels: float = typer.Option(1.2, "--megapixels", min=0.05, max=60, help="Frame size."),
+    overwrite: bool = typer.Option(False, "--overwrite", help="Replace existing files."),
+) -> None:
+    """Render a stone's test session: every rotation with the polariser at 0 and 90 degrees and without."""
+    import dataclasses
+
+    from critline.synth import random_scene
+    from critline.synth.session import write_session
+
+    if len(principal) != 3:
+        raise UsageError("--principal: give exactly three principal indices")
+    try:
+        angles = [float(x) for x in rotations.split(",") if x.strip()]
+    except ValueError:
+        raise UsageError(f"--rotations: not a comma-separated list of angles: {rotations!r}") from None
+    if not angles:
+        raise UsageError("--rotations: give at least one angle")
+    try:
+        base = random_scene(seed, megapixels=megapixels, light=light, liquid_ri=liquid, orientation=1)
+    except ValueError as exc:
+        raise UsageError(str(exc)) from None
+
+    def vary(i):
+        shot = random_scene(seed * 1000 + i + 1, megapixels=megapixels)
+        keep = ("width", "height", "field_cx", "field_cy", "field_diameter", "axis_angle_deg", "tilt_deg",
+                "tilt_axis_deg", "exposure", "defocus", "motion", "motion_angle_deg", "dust")
+        return {k: getattr(shot, k) for k in keep}
+
+    base = dataclasses.replace(base, stone_material=None)
+    written = write_session(folder, tuple(principal), facet, base, seed, rotations=angles,
+                            polarisers=(0, 90, None), vary=vary, overwrite=overwrite)
+    typer.echo(f"wrote {len(written)} photos under {folder}")
+
+
 @synth_app.command("demo", epilog=cautions.HELP_EPILOG)
 def demo(
     samples_dir: Path = typer.Argument(Path("samples"), help="Folder of the demo samples."),
