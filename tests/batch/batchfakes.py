@@ -130,3 +130,9 @@ def fake_identify(analysis, sg=None, **_):
 
 def fake_core():
     return FakeObservation, fake_analyse, fake_identify
+
+
+def chatty_reader(path, instrument=None, calibration=None, overlay_dir=None) -> PhotoReading:
+    """The fake reader, printing on stdout as careless library code might."""
+    print(f"reading {path} ...")
+    return fake_reader(path, instrument, calibration, overlay_dir)

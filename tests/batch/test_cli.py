@@ -79,3 +79,20 @@ def test_watch_command_once(tmp_path, capsys, fake_reader_everywhere):
                  "--interval", "0.05"])
     out = capsys.readouterr().out
     assert code == 0 and "s1/r000_pol0.png: 1.6200" in out and "reports:" in out
+
+
+@pytest.mark.parametrize("workers", ["1", "2"])
+def test_json_stdout_survives_a_chatty_reader(tmp_path, capfd, monkeypatch, fake_core, workers):
+    from batchfakes import chatty_reader
+
+    monkeypatch.setattr(batch_run, "default_reader", lambda: chatty_reader)
+    write_fake_photo(tmp_path / "p" / "s" / "r000_pol0.png", [1.62])
+    write_fake_photo(tmp_path / "p" / "s" / "r045_pol0.png", [1.62])
+    code = main(["batch", str(tmp_path / "p"), "--out", str(tmp_path / "o"), "--json",
+                 "--workers", workers])
+    out, err = capfd.readouterr()
+    assert code == 0
+    assert json.loads(out)["stones"][0]["stone"] == "s"
+    if workers == "1":
+        # (worker processes write to the stderr their fork server started with)
+        assert "reading " in err  # the chatter went to stderr

@@ -10,9 +10,11 @@ compares against.  A reader that raises, or a worker that dies, turns into a
 
 from __future__ import annotations
 
+import contextlib
 import math
 import multiprocessing
 import os
+import sys
 import warnings
 from collections.abc import Callable, Sequence
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
@@ -79,7 +81,8 @@ def read_one(task: ReadTask, reader: Reader, instrument, calibration) -> tuple[P
     try:
         if task.overlay_dir is not None:
             Path(task.overlay_dir).mkdir(parents=True, exist_ok=True)
-        with warnings.catch_warnings():
+        # stdout belongs to the command's own output (one JSON document with --json)
+        with warnings.catch_warnings(), contextlib.redirect_stdout(sys.stderr):
             # numerical warnings inside the reader are not messages for the user: what
             # matters reaches the reading as flags, uncertainty or a rejection
             warnings.simplefilter("ignore", RuntimeWarning)
