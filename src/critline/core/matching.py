@@ -57,7 +57,9 @@ LIQUID_UNCERTAINTY = 0.005
 #: multiplier on the score when the measured optic character (rows) meets a material's (columns)
 CHARACTER_WEIGHTS = {
     "isotropic": {"isotropic": 1.0, "amorphous": 1.0, "aggregate": 0.8, "uniaxial": 0.05, "biaxial": 0.05},
-    "uniaxial": {"uniaxial": 1.0, "biaxial": 0.3, "aggregate": 0.1, "isotropic": 0.02, "amorphous": 0.02},
+    # one facet of a biaxial stone can read as uniaxial (beta near alpha or gamma, or the facet
+    # perpendicular to a principal vibration direction): a mild penalty only
+    "uniaxial": {"uniaxial": 1.0, "biaxial": 0.5, "aggregate": 0.1, "isotropic": 0.02, "amorphous": 0.02},
     "biaxial": {"biaxial": 1.0, "uniaxial": 0.05, "aggregate": 0.1, "isotropic": 0.02, "amorphous": 0.02},
 }
 #: multiplier when the measured optic sign is the opposite of the material's
@@ -311,7 +313,9 @@ def _score(material: Material, m: _Measured) -> tuple[float, list[str], list[str
         p = CHARACTER_WEIGHTS[m.character][material.optic_character]
         add(p, f"optic character {m.character} vs {material.optic_character}")
 
-    if m.sign is not None and material.is_doubly_refractive and material.sign is not None:
+    # a sign found by the uniaxial rule says nothing about a biaxial material's sign
+    sign_applies = m.character is None or m.character == material.optic_character
+    if m.sign is not None and material.is_doubly_refractive and material.sign is not None and sign_applies:
         p = 1.0 if m.sign == material.sign else SIGN_CONFLICT
         add(p, f"optic sign {m.sign} vs {material.sign}")
 
@@ -377,6 +381,12 @@ def _separating_tests(leaders: Sequence[Material], m: _Measured) -> list[str]:
     if m.character is None and len(characters) > 1:
         listing = "; ".join(f"{x.key} {x.optic_character}" for x in leaders)
         tests.append(f"optic character: read at least 4 positions through 180 degrees ({listing})")
+    elif m.character == "uniaxial" and "biaxial" in characters:
+        listing = ", ".join(x.key for x in leaders if x.optic_character == "biaxial")
+        tests.append(
+            "optic character on another facet: one facet of a biaxial stone can read as uniaxial "
+            f"({listing} biaxial)"
+        )
     signs = {x.sign for x in leaders if x.is_doubly_refractive and x.sign}
     if m.sign is None and len(signs) > 1:
         listing = "; ".join(f"{x.key} {x.sign}" for x in leaders if x.is_doubly_refractive and x.sign)

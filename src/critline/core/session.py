@@ -32,7 +32,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Iterable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 from scipy import stats
@@ -202,6 +202,14 @@ class SessionAnalysis:
 class _Reading:
     ri: float
     u: float
+    rotation: float | None = None
+    #: an extreme read at discrete rotations: the true extreme may lie up to this much further out
+    slack: float = 0.0
+
+    @property
+    def total_u(self) -> float:
+        """Standard uncertainty including the sampling slack (taken as two standard uncertainties)."""
+        return math.hypot(self.u, 0.5 * self.slack)
 
 
 def _weighted_mean(readings: Sequence[_Reading]) -> _Reading:
@@ -284,10 +292,13 @@ def _positions(observations: Sequence[Observation]) -> list[_Position]:
             lows.append(rays[0])
             highs.append(rays[-1])
             pos.extra_edges += len(rays) - 2
+        rotation = key[1] % 180.0 if key[0] == "rot" else None
         if lows:
-            pos.low, pos.high, pos.complete = _weighted_mean(lows), _weighted_mean(highs), True
+            pos.low = replace(_weighted_mean(lows), rotation=rotation)
+            pos.high = replace(_weighted_mean(highs), rotation=rotation)
+            pos.complete = True
         elif rays:
-            pos.single = rays[0]
+            pos.single = replace(rays[0], rotation=rotation)
         else:
             continue
         positions.append(pos)
@@ -318,6 +329,94 @@ def _moves_beyond(low, high) -> bool:
 
 def _fmt(x: float) -> str:
     return f"{x:.4f}"
+
+
+def _constant_value(series: Sequence[_Reading]) -> _Reading:
+    """A constant edge: the weighted mean, uncertain by at least half the band the readings span."""
+    mean = _weighted_mean(series)
+    spread = max(r.ri for r in series) - min(r.ri for r in series)
+    return _Reading(mean.ri, max(mean.u, 0.5 * spread))
+
+
+def _largest_gap(series: Sequence[_Reading]) -> float:
+    """Largest rotation gap (degrees, modulo 180) between the positions of a series."""
+    if any(r.rotation is None for r in series):
+        return 180.0 / max(len(series), 1)
+    rotations = sorted({round(r.rotation % 180.0, 6) for r in series})
+    if len(rotations) < 2:
+        return 180.0
+    gaps = [b - a for a, b in zip(rotations, rotations[1:], strict=False)]
+    gaps.append(rotations[0] + 180.0 - rotations[-1])
+    return max(gaps)
+
+
+def _sinusoid_extreme(series: Sequence[_Reading], highest: bool) -> _Reading | None:
+    """Extreme of a moving edge from a least-squares fit over the stone's rotation.
+
+    For the moving edge of a uniaxial stone, ``1/n^2`` is exactly
+    ``c + a cos(2 phi) + b sin(2 phi)`` in the rotation ``phi`` (the
+    extraordinary index ``1/n^2 = cos^2(theta)/omega^2 + sin^2(theta)/epsilon^2``
+    with ``cos(theta)`` proportional to ``cos(phi - phi0)`` on the facet); a
+    biaxial edge is only roughly so.  The fit uses every reading, so its extreme is
+    free of the sampling step and of the upward bias of a noisy maximum.
+    Returns ``None`` when the rotations are unknown, too few or too sparse, or
+    the readings do not follow the model (chi-square test at 1e-3).
+    """
+    if any(r.rotation is None for r in series):
+        return None
+    if len({round(r.rotation % 180.0, 6) for r in series}) < 4 or _largest_gap(series) > 90.0:
+        return None
+    n = np.array([r.ri for r in series])
+    phi = np.radians([r.rotation for r in series])
+    y = 1.0 / n**2
+    sy = 2.0 * np.array([max(r.u, UNCERTAINTY_FLOOR) for r in series]) / n**3
+    design = np.column_stack([np.ones_like(phi), np.cos(2 * phi), np.sin(2 * phi)])
+    w = 1.0 / sy**2
+    normal = design.T @ (design * w[:, None])
+    try:
+        cov = np.linalg.inv(normal)
+    except np.linalg.LinAlgError:
+        return None
+    c, a, b = cov @ (design.T @ (w * y))
+    chi2 = float(np.sum(w * (y - design @ np.array([c, a, b])) ** 2))
+    dof = len(series) - 3
+    if dof >= 1:
+        if stats.chi2.sf(chi2, dof) < 1e-3:
+            return None
+        cov = cov * max(1.0, chi2 / dof)  # scale by the reduced chi-square when above 1
+    radius = math.hypot(a, b)
+    if radius <= 0.0:
+        return None
+    sign = -1.0 if highest else 1.0  # the highest index is the smallest 1/n^2
+    y_ext = c + sign * radius
+    if y_ext <= 0:
+        return None
+    grad = np.array([1.0, sign * a / radius, sign * b / radius])
+    u_y = math.sqrt(max(float(grad @ cov @ grad), 0.0))
+    ri = y_ext**-0.5
+    phi_ext = 0.5 * math.degrees(math.atan2(b, a)) + (90.0 if highest else 0.0)
+    return _Reading(float(ri), float(0.5 * y_ext**-1.5 * u_y), phi_ext % 180.0)
+
+
+def _extreme(series: Sequence[_Reading], highest: bool, uniaxial: bool = False) -> _Reading:
+    """Highest (or lowest) value a moving edge reaches, with an honest uncertainty.
+
+    For the moving edge of a uniaxial stone, the least-squares fit of
+    :func:`_sinusoid_extreme` when it applies (the model is exact there; a
+    biaxial edge can have a sharp turn near an optic axis that a sinusoid
+    misses, so biaxial edges are not fitted); else the
+    extreme reading, its uncertainty widened by how far the true extreme can lie
+    between two positions (a sinusoid of amplitude ``A`` sampled every ``g``
+    degrees of rotation misses its extreme by at most ``A (1 - cos g)``).
+    """
+    fitted = _sinusoid_extreme(series, highest) if uniaxial else None
+    if fitted is not None:
+        return fitted
+    pick = max if highest else min
+    sampled = pick(series, key=lambda r: r.ri)
+    amplitude = 0.5 * (max(r.ri for r in series) - min(r.ri for r in series))
+    bound = amplitude * (1.0 - math.cos(math.radians(_largest_gap(series))))
+    return _Reading(sampled.ri, sampled.u, sampled.rotation, slack=bound)
 
 
 # --------------------------------------------------------------------------- analysis
@@ -468,11 +567,11 @@ def analyse_session(
         low = low if low is not None else min(lows, key=lambda r: r.ri)
         high = high if high is not None else max(highs, key=lambda r: r.ri)
         bire = max(high.ri - low.ri, 0.0)
-        bire_u = math.hypot(low.u, high.u)
+        bire_u = math.hypot(low.total_u, high.total_u)
         return _result(
             ri_low=low.ri, ri_high=high.ri,
             birefringence=bire, birefringence_uncertainty=bire_u,
-            uncertainty=max(typical_u, low.u, high.u), character=character, sign=sign, beta=beta,
+            uncertainty=max(typical_u, low.total_u, high.total_u), character=character, sign=sign, beta=beta,
             over_limit=over_limit, spot_ri=spot_ri, spot_uncertainty=spot_unc, flags=flags,
             notes=notes, positions=n_positions, readings=n_readings, liquid_ri=liquid_ri,
             candidates=candidates, omega=omega, epsilon=epsilon, observations=observations,
@@ -508,7 +607,7 @@ def analyse_session(
                 "with one ray only, or readings that disagree. Optic character undetermined."
             )
             return finish("undetermined")
-        mean = _weighted_mean(pooled)
+        mean = _constant_value(pooled)
         shown_two = sum(1 for p in complete if p.two_edges)
         if complete and shown_two >= 0.5 * len(complete):
             flags.append("unresolved_splitting")
@@ -561,9 +660,7 @@ def analyse_session(
         return finish("undetermined")
 
     low_moves, high_moves = _moves(lows), _moves(highs)
-    low_const, high_const = _weighted_mean(lows), _weighted_mean(highs)
-    alpha = min(lows, key=lambda r: r.ri)
-    gamma = max(highs, key=lambda r: r.ri)
+    low_const, high_const = _constant_value(lows), _constant_value(highs)
     if unpaired_clusters is not None:
         notes.append(
             "The rays were read one at a time without a record of the stone's rotation: the two "
@@ -581,13 +678,12 @@ def analyse_session(
 
     if low_moves != high_moves:
         if not low_moves:  # constant low edge: omega below epsilon -> positive
-            omega, epsilon, sign = low_const, gamma, "+"
-            low, high = low_const, gamma
-            hidden = 3 * low_const.u * math.sqrt(len(lows))
+            omega, epsilon, sign = low_const, _extreme(highs, highest=True, uniaxial=True), "+"
+            low, high = omega, epsilon
         else:
-            omega, epsilon, sign = high_const, alpha, "-"
-            low, high = alpha, high_const
-            hidden = 3 * high_const.u * math.sqrt(len(highs))
+            omega, epsilon, sign = high_const, _extreme(lows, highest=False, uniaxial=True), "-"
+            low, high = epsilon, omega
+        hidden = max(omega.u, 3 * typical_u)
         notes.append(
             f"One edge constant at {_fmt(omega.ri)} (omega), the other moving to {_fmt(epsilon.ri)} "
             f"(epsilon): uniaxial, {'positive' if sign == '+' else 'negative'}."
@@ -600,18 +696,25 @@ def analyse_session(
         return finish("uniaxial", sign=sign, low=low, high=high, omega=omega.ri, epsilon=epsilon.ri)
 
     # both edges move: biaxial
-    beta_low = max(lows, key=lambda r: r.ri)
-    beta_high = min(highs, key=lambda r: r.ri)
+    alpha, gamma = _extreme(lows, highest=False), _extreme(highs, highest=True)
+    beta_low, beta_high = _extreme(lows, highest=True), _extreme(highs, highest=False)
     candidates = (beta_low.ri, beta_high.ri)
 
-    def sign_for(beta: _Reading) -> str | None:
-        d = (beta.ri - alpha.ri) - (gamma.ri - beta.ri)
-        ud = math.sqrt(4 * beta.u**2 + alpha.u**2 + gamma.u**2)
-        if abs(d) <= SIGN_Z * ud:
-            return None
-        return "+" if d < 0 else "-"
+    def sign_for(beta: _Reading, beta_is_max: bool) -> str | None:
+        # d = (beta - alpha) - (gamma - beta): negative for a positive stone (textbook rule)
+        d = 2 * beta.ri - alpha.ri - gamma.ri
+        ud = SIGN_Z * math.sqrt(4 * beta.u**2 + alpha.u**2 + gamma.u**2)
+        # sampled extremes can only lie inside the true ones: true alpha lower, gamma higher,
+        # the highest low edge higher, the lowest high edge lower (by up to their slack)
+        up = alpha.slack + (2 * beta.slack if beta_is_max else 0.0)
+        down = gamma.slack + (0.0 if beta_is_max else 2 * beta.slack)
+        if d + up < -ud:
+            return "+"
+        if d - down > ud:
+            return "-"
+        return None
 
-    s_low, s_high = sign_for(beta_low), sign_for(beta_high)
+    s_low, s_high = sign_for(beta_low, True), sign_for(beta_high, False)
     same_beta = not _distinct(beta_low, beta_high, SPLIT_Z)
     beta = _weighted_mean([beta_low, beta_high]).ri if same_beta else None
     if s_low is not None and s_low == s_high:
