@@ -20,8 +20,8 @@ from critline.fileio import atomic_write_text
 HEADER = (
     "# critline instrument calibration (plain TOML).\n"
     "# Maps the reader's scale position to refractive index at 589.3 nm; see the\n"
-    "# scale_map and references below.  Written by `critline calibrate`; edit by hand\n"
-    "# only to fix the setup description: the id is a hash of the rest.\n"
+    "# scale_map and references below.  Written by `critline calibrate`; the id is a\n"
+    "# short hash of everything else, so a hand-edited file no longer matches its id.\n"
 )
 
 # --------------------------------------------------------------------------- TOML writer
