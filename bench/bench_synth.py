@@ -7,6 +7,7 @@ Usage: python bench/bench_synth.py [--repeat N]
 from __future__ import annotations
 
 import argparse
+import os
 import resource
 import time
 from pathlib import Path
@@ -21,15 +22,16 @@ def main() -> None:
     args = parser.parse_args()
     white_weights()  # load the colour tables once (import of colour-science), not timed
     render(random_scene(0, megapixels=0.1), 0)
-    print(f"megapixels light   field_d  seconds(best of {args.repeat})")
+    print(f"load average before: {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores")
+    print(f"megapixels light   field_d  wall s (best of {args.repeat})  cpu s")
     times = {}
     for mp in (1, 12, 48):
         for light in ("sodium", "white"):
             scene = random_scene(7, megapixels=mp, light=light, field_diameter=0.9, defocus=0.003,
                                  motion=0.002, denoise=0.5, sharpen=0.5)
-            best = min(_timed(scene) for _ in range(args.repeat))
+            best, cpu = min(_timed(scene) for _ in range(args.repeat))
             times[(mp, light)] = best
-            print(f"{mp:10d} {light:7s} {scene.field_diameter:7.2f}  {best:8.2f}")
+            print(f"{mp:10d} {light:7s} {scene.field_diameter:7.2f}  {best:8.2f}  {cpu:18.2f}")
     print(f"ratio 48 MP / 1 MP (sodium): {times[(48, 'sodium')] / times[(1, 'sodium')]:.1f}")
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
     print(f"peak resident memory: {peak:.0f} MB")
@@ -42,10 +44,10 @@ def main() -> None:
               f"(photos {sum(p.stat().st_size for p in photos) / 1e6:.2f} MB)")
 
 
-def _timed(scene) -> float:
-    t0 = time.perf_counter()
+def _timed(scene) -> tuple[float, float]:
+    t0, c0 = time.perf_counter(), time.process_time()
     render(scene, 1)
-    return time.perf_counter() - t0
+    return time.perf_counter() - t0, time.process_time() - c0
 
 
 if __name__ == "__main__":
