@@ -136,3 +136,11 @@ def chatty_reader(path, instrument=None, calibration=None, overlay_dir=None) -> 
     """The fake reader, printing on stdout as careless library code might."""
     print(f"reading {path} ...")
     return fake_reader(path, instrument, calibration, overlay_dir)
+
+
+def slow_reader(path, instrument=None, calibration=None, overlay_dir=None) -> PhotoReading:
+    """The fake reader taking its time (for interruption tests)."""
+    import time
+
+    time.sleep(0.4)
+    return fake_reader(path, instrument, calibration, overlay_dir)

@@ -96,3 +96,52 @@ def test_json_stdout_survives_a_chatty_reader(tmp_path, capfd, monkeypatch, fake
     if workers == "1":
         # (worker processes write to the stderr their fork server started with)
         assert "reading " in err  # the chatter went to stderr
+
+
+SLOW_BATCH = """
+import sys
+import batchfakes
+from critline.batch import run as batch_run, stones
+from critline.cli import main
+
+if __name__ == "__main__":
+    batch_run.default_reader = lambda: batchfakes.slow_reader
+    stones._core = batchfakes.fake_core
+    print("started", file=sys.stderr, flush=True)
+    sys.exit(main(sys.argv[1:]))
+"""
+
+
+def test_ctrl_c_keeps_what_was_read(tmp_path, fake_core):
+    import signal
+    import subprocess
+    import sys
+    import time
+    from pathlib import Path
+
+    for k in range(16):
+        write_fake_photo(tmp_path / "p" / "s" / f"r{k * 10:03d}_pol0.png", [1.62])
+    script = tmp_path / "slow_batch.py"
+    script.write_text(SLOW_BATCH)
+    env = dict(__import__("os").environ, PYTHONPATH=str(Path(__file__).parent))
+    proc = subprocess.Popen([sys.executable, str(script), "batch", str(tmp_path / "p"), "--out",
+                             str(tmp_path / "o"), "--workers", "2"], env=env,
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    cache = tmp_path / "o" / "cache"
+    deadline = time.monotonic() + 60
+    while time.monotonic() < deadline and len(list(cache.glob("*.json"))) < 2:
+        time.sleep(0.1)
+    proc.send_signal(signal.SIGINT)
+    try:
+        out, err = proc.communicate(timeout=30)
+    except subprocess.TimeoutExpired:
+        proc.kill()
+        raise
+    assert proc.returncode == 130, err
+    assert "critline: interrupted; the photos read so far are kept" in err and "Traceback" not in err
+    kept = len(list(cache.glob("*.json")))
+    assert 2 <= kept < 16
+    assert not list((tmp_path / "o").glob(".*.tmp")) and not list(cache.glob(".*.tmp"))
+    # the re-run reads only what is missing
+    res = batch_run.run_batch(tmp_path / "p", out_dir=tmp_path / "o", workers=1, reader=fake_reader)
+    assert res.counts["cached"] == kept and res.counts["read"] == 16 - kept

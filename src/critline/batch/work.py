@@ -14,6 +14,7 @@ import contextlib
 import math
 import multiprocessing
 import os
+import signal
 import sys
 import warnings
 from collections.abc import Callable, Sequence
@@ -105,6 +106,8 @@ _worker_state: dict = {}
 
 def _init_worker(reader: Reader, instrument, calibration) -> None:
     _worker_state.update(reader=reader, instrument=instrument, calibration=calibration)
+    # Ctrl-C is handled by the main process (it keeps what is done and stops the workers)
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
     # one thread per worker: the processes are the parallelism
     try:
         import cv2
@@ -202,9 +205,9 @@ def read_many(tasks: Sequence[ReadTask], *, reader: Reader, instrument=None, cal
     prepare_workers(reader)
     size = chunk_size(len(tasks), workers)
     chunks = [list(range(i, min(i + size, len(tasks)))) for i in range(0, len(tasks), size)]
-    with ProcessPoolExecutor(max_workers=min(workers, len(chunks)), mp_context=_context(reader),
-                             initializer=_init_worker,
-                             initargs=(reader, instrument, calibration)) as pool:
+    pool = ProcessPoolExecutor(max_workers=min(workers, len(chunks)), mp_context=_context(reader),
+                               initializer=_init_worker, initargs=(reader, instrument, calibration))
+    try:
         pending = {pool.submit(_read_chunk, [tasks[i] for i in idx]): idx for idx in chunks}
         while pending:
             finished, _ = wait(pending, return_when=FIRST_COMPLETED)
@@ -221,6 +224,16 @@ def read_many(tasks: Sequence[ReadTask], *, reader: Reader, instrument=None, cal
                         tasks, idx, f"{READER_FAILED}{type(exc).__name__}: {exc})")
                 for i, res in zip(idx, chunk_results, strict=True):
                     done(i, res)
+    except BaseException:
+        # interrupted (Ctrl-C) or failing here: the results so far are already handed on;
+        # stop the workers this call started instead of waiting for their shares
+        processes = list((getattr(pool, "_processes", None) or {}).values())
+        pool.shutdown(wait=False, cancel_futures=True)
+        for proc in processes:
+            if proc.is_alive():
+                proc.terminate()
+        raise
+    pool.shutdown(wait=True)
     return results  # type: ignore[return-value]
 
 

@@ -147,6 +147,13 @@ def batch(
         result = run_batch(folder, calibration=cal, instrument=inst, out_dir=out_dir, workers=workers,
                            fresh=fresh, name_pattern=name_pattern, overlays=not no_overlays, on_start=on_start,
                            on_progress=on_progress)
+    except KeyboardInterrupt:
+        if progress is not None:
+            progress.stop()
+            progress = None
+        print(f"critline: interrupted; the photos read so far are kept in {out_dir / 'cache'} "
+              "(run the same command again to read only the rest)", file=sys.stderr)
+        raise typer.Exit(130) from None
     finally:
         if progress is not None:
             progress.stop()
