@@ -74,3 +74,27 @@ def test_bayer_mosaic_keeps_levels_and_colour():
     g = lin[..., 1] - lin[..., 1].mean()
     corr = (g[:, 1:] * g[:, :-1]).mean() / g.var()
     assert corr > 0.1
+
+
+def test_lateral_chromatic_aberration_shifts_red_out_and_blue_in():
+    # Lateral colour: red imaged larger than blue about the lens axis (textbook lens aberration).
+    base = dict(stone_ris=(), liquid_line=0.0, width=600, height=400, field_cx=0.75, field_diameter=0.5,
+                labels=False, spine=False, ink=0.0, surround=0.0, **clean_overrides())
+    img, truth = render(Scene(**{**base, "lateral_ca": 0.01, "white_balance": 1.0, "light": "white"}), 0)
+    lin = _linear(img)
+    row = int(round(truth["field"]["cy"]))
+    right_rim = {}
+    for c in (0, 2):
+        profile = lin[row, :, c] / lin[row, :, c].max()
+        right_rim[c] = np.nonzero(profile > 0.5)[0].max()
+    # the field's outer rim (away from the frame centre) lies further out in red than in blue
+    assert right_rim[0] - right_rim[2] >= 3
+
+
+def test_glare_lights_the_surround_near_the_field():
+    base = dict(stone_ris=(), liquid_line=0.0, width=400, height=300, surround=0.0, **clean_overrides())
+    plain, truth = render(Scene(**base), 0)
+    glared, _ = render(Scene(**{**base, "glare": 0.05}), 0)
+    x = int(truth["field"]["cx"] + truth["field"]["r"] + 8)
+    y = int(truth["field"]["cy"])
+    assert _linear(glared)[y, x, 0] > _linear(plain)[y, x, 0] + 0.005

@@ -61,6 +61,7 @@ def _phone(rng: np.random.Generator) -> dict:
         read_noise=float(rng.uniform(1.5, 3.0)), denoise=float(rng.uniform(0.6, 0.9)),
         sharpen=float(rng.uniform(0.2, 0.6)), white_balance=float(rng.uniform(0.3, 0.7)),
         vignetting=float(rng.uniform(0.05, 0.25)),
+        glare=float(rng.uniform(0.0, 0.02)), lateral_ca=float(rng.uniform(0.0, 0.0006)),
         crescent=float(rng.choice([0.0, rng.uniform(0.05, 0.25)], p=[0.7, 0.3])),
         crescent_angle_deg=float(rng.uniform(0, 360)),
         surround=float(rng.uniform(0.0, 0.01)), dust=int(rng.integers(0, 4)),

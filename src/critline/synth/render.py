@@ -294,7 +294,8 @@ def phone_capture(linear: np.ndarray, scene: Scene, rng: np.random.Generator, co
                   region: tuple[int, int, int, int] | None = None) -> np.ndarray:
     """The phone's pipeline on the frame's linear light ``(channels, h, w)`` -> RGB uint8.
 
-    Lens vignetting, defocus (Gaussian), motion blur (line kernel), exposure,
+    Lens vignetting, veiling glare, lateral chromatic aberration, defocus
+    (Gaussian), motion blur (line kernel), colour filter mosaic, exposure,
     sensor noise in linear light (shot noise ~ sqrt(electrons), read noise),
     clipping, edge-aware noise reduction, the sRGB tone curve and unsharp
     masking, in that order.  ``region`` ``(x0, x1, y0, y1)``: where the field is (the
@@ -309,6 +310,25 @@ def phone_capture(linear: np.ndarray, scene: Scene, rng: np.random.Generator, co
         for ch in range(linear.shape[0]):
             cv2.multiply(linear[ch], fall, dst=linear[ch])
         del fall
+    if scene.glare > 0:
+        # veiling glare: a little of the field's light spread widely by the lenses
+        small = cv2.resize(linear.mean(axis=0), (max(w // 8, 1), max(h // 8, 1)), interpolation=cv2.INTER_AREA)
+        small = cv2.GaussianBlur(small, (0, 0), max(r / 8 * 0.6, 1.0))
+        halo = cv2.resize(small, (w, h), interpolation=cv2.INTER_LINEAR) * np.float32(scene.glare)
+        for ch in range(linear.shape[0]):
+            linear[ch] += halo
+        del small, halo
+    if scene.lateral_ca > 0:
+        # lateral chromatic aberration: red imaged slightly larger, blue slightly smaller
+        # than green, about the lens axis (frame centre)
+        if linear.shape[0] == 1:
+            linear = np.repeat(linear, 3, axis=0)
+        for ch, sign in ((0, 1.0), (2, -1.0)):
+            k = 1.0 + sign * scene.lateral_ca
+            cx_, cy_ = (w - 1) / 2, (h - 1) / 2
+            m = np.array([[k, 0, cx_ * (1 - k)], [0, k, cy_ * (1 - k)]], np.float64)
+            linear[ch] = cv2.warpAffine(linear[ch], m, (w, h), flags=cv2.INTER_LINEAR,
+                                        borderMode=cv2.BORDER_REPLICATE)
     out = np.empty((h, w, 3), np.uint8)
     mono = linear.shape[0] == 1
     blurred = []

@@ -79,6 +79,8 @@ class Scene:
     sharpen: float = 0.4                      # phone sharpening amount
     white_balance: float = 0.5                # how far the phone neutralises the light's colour
     vignetting: float = 0.15                  # phone lens falloff at the frame corner
+    glare: float = 0.0                        # veiling glare around the bright field, 0..0.05
+    lateral_ca: float = 0.0                   # red/blue magnification difference (chromatic aberration)
     crescent: float = 0.0                     # off-axis pupil clipping: 0 none .. 0.6 deep
     crescent_angle_deg: float = 0.0
     surround: float = 0.015                   # brightness of the dark housing around the field
@@ -230,6 +232,8 @@ def random_scene(seed: int, **overrides) -> Scene:
         sharpen=float(rng.uniform(0.0, 1.0)),
         white_balance=float(rng.uniform(0.0, 0.9)),
         vignetting=float(rng.uniform(0.0, 0.4)),
+        glare=float(rng.uniform(0.0, 0.04)),
+        lateral_ca=float(rng.choice([0.0, rng.uniform(0.0002, 0.0012)], p=[0.5, 0.5])),
         crescent=float(rng.choice([0.0, rng.uniform(0.05, 0.5)], p=[0.6, 0.4])),
         crescent_angle_deg=float(rng.uniform(0, 360)),
         surround=float(rng.uniform(0.0, 0.05)),
@@ -243,5 +247,5 @@ def random_scene(seed: int, **overrides) -> Scene:
 def clean_overrides() -> dict:
     """Overrides that remove every degradation of the phone (for exact measurements)."""
     return dict(tilt_deg=0.0, defocus=0.0, motion=0.0, full_well=0.0, bayer=False, denoise=0.0, sharpen=0.0,
-                vignetting=0.0, crescent=0.0, dust=0, exposure=0.8, field_falloff=0.0,
+                vignetting=0.0, glare=0.0, lateral_ca=0.0, crescent=0.0, dust=0, exposure=0.8, field_falloff=0.0,
                 illumination_slope=0.0, orientation=1, jpeg_quality=95)
