@@ -47,7 +47,7 @@ def demo_instrument() -> Instrument:
 
 def _phone(rng: np.random.Generator) -> dict:
     """A hand-held phone shot within a modest part of the envelope (small files for the repo)."""
-    mp = float(rng.uniform(1.0, 1.3))
+    mp = float(rng.uniform(1.0, 1.15))
     width, height = frame_size(mp, 4 / 3, portrait=bool(rng.random() < 0.3))
     return dict(
         width=width, height=height,
