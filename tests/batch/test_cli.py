@@ -145,3 +145,20 @@ def test_ctrl_c_keeps_what_was_read(tmp_path, fake_core):
     # the re-run reads only what is missing
     res = batch_run.run_batch(tmp_path / "p", out_dir=tmp_path / "o", workers=1, reader=fake_reader)
     assert res.counts["cached"] == kept and res.counts["read"] == 16 - kept
+
+
+def test_calibration_brings_its_instrument_and_a_different_scale_is_refused(tmp_path):
+    from types import SimpleNamespace
+
+    from critline.cli.batch import instrument_for
+    from critline.errors import UsageError
+    from critline.instrument import DEFAULT, Instrument
+
+    cal = SimpleNamespace(instrument={"name": "desk", "first": 1.35, "last": 1.85, "step": 0.01,
+                                      "liquid_ri": 1.81, "unknown_key": 1})
+    inst = instrument_for(cal, DEFAULT, explicit=False, calibration_path="c.toml")
+    assert (inst.first, inst.last, inst.liquid_ri) == (1.35, 1.85, 1.81)
+    same = Instrument(first=1.35, last=1.85, liquid_ri=1.80)
+    assert instrument_for(cal, same, explicit=True, calibration_path="c.toml") is same
+    with pytest.raises(UsageError, match="c.toml: made for a 1.35-1.85 scale"):
+        instrument_for(cal, DEFAULT, explicit=True, calibration_path="c.toml")

@@ -62,10 +62,15 @@ def calibration_summary(calibration) -> dict:
     if calibration is None:
         return {}
     info = {}
-    for key in ("id", "created", "light", "model"):
+    for key in ("id", "created", "light", "model", "residual_rms", "valid_range"):
         value = getattr(calibration, key, None)
-        if value is not None:
-            info[key] = value if isinstance(value, str | int | float) else str(value)
+        if value is None:
+            continue
+        if isinstance(value, float):
+            value = round(value, 4)
+        elif isinstance(value, tuple | list):
+            value = "–".join(f"{v:.4f}" if isinstance(v, float) else str(v) for v in value)
+        info[key] = value if isinstance(value, str | int | float) else str(value)
     return info
 
 

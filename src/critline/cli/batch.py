@@ -44,7 +44,32 @@ def load_setup(calibration: Path | None, instrument: Path | None):
         except Exception as exc:  # the calibration module's own error types
             text = str(exc)
             raise UsageError(text if str(calibration) in text else f"{calibration}: {text}") from None
+        inst = instrument_for(cal, inst, explicit=instrument is not None, calibration_path=calibration)
     return inst, cal
+
+
+def instrument_for(cal, inst, *, explicit: bool, calibration_path):
+    """The calibration's own instrument unless one was given; a given one must have the same scale."""
+    from dataclasses import fields
+
+    from critline.instrument import Instrument
+
+    described = getattr(cal, "instrument", None)
+    if not isinstance(described, dict) or not described:
+        return inst
+    known = {f.name for f in fields(Instrument)}
+    try:
+        cal_inst = Instrument(**{k: v for k, v in described.items() if k in known})
+    except TypeError:
+        return inst
+    if not explicit:
+        return cal_inst
+    same = all(abs(getattr(inst, k) - getattr(cal_inst, k)) < 1e-9 for k in ("first", "last", "step"))
+    if not same:
+        raise UsageError(f"{calibration_path}: made for a {cal_inst.first:g}-{cal_inst.last:g} scale "
+                         f"(step {cal_inst.step:g}), but the instrument file describes "
+                         f"{inst.first:g}-{inst.last:g} (step {inst.step:g})")
+    return inst
 
 
 def _stderr_console():
