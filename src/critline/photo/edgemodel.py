@@ -133,19 +133,39 @@ def _dark(window: Window, n, g):
     return 1.0 - r**g if g != 1.0 else 1.0 - r
 
 
-def _blur(window: Window, f, sigma):
-    """Gaussian blur of grid values ``f`` (several rows at once) by FFT."""
-    transfer = np.exp(-2.0 * (np.pi * sigma * window.freq) ** 2)
-    return irfft(rfft(f, n=window.fft_len, axis=-1) * transfer, n=window.fft_len,
-                 axis=-1)[..., : window.grid.size]
+def _blur(window: Window, f, sigma, shape_rows=0):
+    """Gaussian blur of grid values ``f`` (several rows at once) by FFT.
+
+    The first ``shape_rows`` rows are also returned convolved with the
+    fourth-order Gram-Charlier kernel ``phi(x) He4(x / sigma)`` (transfer
+    ``G(f) (2 pi sigma f)**4``), appended after the plain rows.
+    """
+    omega2 = (2.0 * np.pi * sigma * window.freq) ** 2
+    transfer = np.exp(-0.5 * omega2)
+    spectrum = rfft(f, n=window.fft_len, axis=-1)
+    if shape_rows:
+        spectrum = np.concatenate([spectrum * transfer,
+                                   spectrum[:shape_rows] * (transfer * omega2 * omega2)])
+    else:
+        spectrum = spectrum * transfer
+    return irfft(spectrum, n=window.fft_len, axis=-1)[..., : window.grid.size]
 
 
 def n_linear(count):
-    return count + 3
+    """Linear parameters: low, p, a_1..a_K, q, and one blur-shape coefficient per term."""
+    return 2 * count + 3
 
 
 def design(window: Window, onsets, sigma, g, at=None):
-    """Blurred basis functions at the samples (or at ``at``): columns low, p, a_1..a_K, q."""
+    """Blurred basis functions at the samples (or at ``at``).
+
+    Columns: low, p, a_1..a_K, q, then c_1..c_K.  The ``c_k`` columns are the
+    edge terms blurred by the fourth-order Gram-Charlier kernel: with them the
+    blur is a Gaussian corrected for kurtosis (Gram-Charlier A series), which
+    takes up a box-like motion blur, a disc-like defocus or the phone's
+    sharpening overshoot without a change of the onset, and without which such
+    an edge would pass for two.
+    """
     t = window.grid
     x_at = window.values if at is None else np.asarray(at, float)
     tau_at = (x_at - window.centre) / window.half_span
@@ -157,11 +177,13 @@ def design(window: Window, onsets, sigma, g, at=None):
     for k, n in enumerate(onsets):
         rows[k] = _dark(window, n, g)
     rows[count] = window.tau_grid * rows[:count].sum(axis=0)
-    blurred = _blur(window, rows, sigma)
+    blurred = _blur(window, rows, sigma, shape_rows=count)
     cols = [np.ones_like(x_at), tau_at]
     for k in range(count):
         cols.append(1.0 - np.interp(x_at, t, blurred[k]))
     cols.append(count * tau_at - np.interp(x_at, t, blurred[count]))
+    for k in range(count):
+        cols.append(-np.interp(x_at, t, blurred[count + 1 + k]))
     return np.stack(cols, axis=1)
 
 
@@ -270,7 +292,12 @@ class Fit:
         lin = self.coef[0] + self.coef[1] * tau
         if edges == "none":
             return lin
-        return lin + self.amplitudes.sum() + self.count * self.coef[-1] * tau
+        return lin + self.amplitudes.sum() + self.count * self.trend * tau
+
+    @property
+    def trend(self):
+        """Multiplicative vignetting coefficient q."""
+        return float(self.coef[2 + self.count])
 
 
 def fit(window: Window, count, theta0, lower, upper, *, max_nfev=60):

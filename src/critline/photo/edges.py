@@ -66,8 +66,15 @@ Z_DETECT = 6.0
 #: Uncertainty floor for model mismatch (blur shape, sharpening, tone curve),
 #: added in quadrature: FLOOR_BLUR_FRACTION * sigma and FLOOR_SPACING_FRACTION *
 #: sample spacing.  Set from the coverage measured in bench/edges_bench.py.
-FLOOR_BLUR_FRACTION = 0.08
+FLOOR_BLUR_FRACTION = 0.2
 FLOOR_SPACING_FRACTION = 0.15
+#: Two edge terms count as resolved only this many blur widths apart or more.
+PAIR_MIN_SEPARATION = 2.5
+#: BIC gain a model with one more edge term must show (Kass and Raftery, "Bayes
+#: factors", JASA 90, 1995, call 10 very strong; doubled for blur-shape mismatch).
+BIC_MORE_TERMS = 20.0
+#: Share of the stretch hidden by clipping (see _hidden_by_clipping) added to the floor.
+FLOOR_CLIPPED_FRACTION = 0.5
 #: Blur (scale units) above which a reading is flagged 'blurred'.
 BLURRED_SIGMA = 0.0025
 #: Contrast below which a stone edge is flagged 'low_contrast'.
@@ -163,10 +170,12 @@ def _prepare(values, brightness, noise, prism_index):
     s = noise[ok][order]
     if not v[-1] - v[0] > 0:
         return None
-    scale = float(np.percentile(np.abs(y), 99))
+    peak = float(np.max(np.abs(y)))
+    scale = max(float(np.percentile(np.abs(y), 99)), 1e-6 * peak)
     if not (scale > 0 and math.isfinite(scale)):
-        scale = float(np.max(np.abs(y))) or 1.0
-    y = y / scale
+        scale = 1.0
+    wild = np.abs(y) > 1e3 * scale  # far off the profile's own range: no information
+    y = np.clip(y / scale, -1e3, 1e3)
     s = s / scale
     diff_sigma = _robust_sigma(np.diff(y)) / math.sqrt(2.0)
     fallback = max(diff_sigma, 1e-4)
@@ -184,7 +193,7 @@ def _prepare(values, brightness, noise, prism_index):
     # monotone run, so the edge itself is never touched)
     dev = y - median_filter(y, size=5, mode="nearest")
     spread = max(_robust_sigma(dev), 1e-12)
-    outlier = (np.abs(dev) > 6.0 * np.maximum(spread, s)) & ~clipped
+    outlier = ((np.abs(dev) > 6.0 * np.maximum(spread, s)) & ~clipped) | wild
     weight = np.where(outlier, 0.0, 1.0 / s)
     steps = np.diff(v)
     spacing = float(np.median(steps[steps > 0])) if np.any(steps > 0) else (v[-1] - v[0]) / v.size
@@ -287,7 +296,7 @@ def _sigma_hint(p: _Profile, lo, hi, height, smooth=1.5):
     peak = float(slope[k])
     if not peak > 0:
         return 3 * p.spacing, float(v[k])
-    sigma = height / (peak * math.sqrt(2 * math.pi))
+    sigma = min(height / (peak * math.sqrt(2 * math.pi)), 1.0)
     sigma = math.sqrt(max(sigma**2 - (smooth * p.spacing) ** 2, 0.0))
     return float(np.clip(sigma, 0.4 * p.spacing, SIGMA_MAX)), float(v[k])
 
@@ -300,6 +309,10 @@ class _Trial:
     valid: bool
     liquid_top: bool = False  # the top term was proposed as the contact liquid's edge
     reason: str = ""
+    #: onsets of the same model refitted with the tone exponent held at 1, when
+    #: clipping hides the top of an edge (their difference measures how much the
+    #: reading leans on the assumed shape)
+    alt_onsets: np.ndarray | None = None
 
 
 def _bic(fit: em.Fit):
@@ -344,7 +357,11 @@ def _try(p: _Profile, window: em.Window, onsets, sigma0, s_lo, s_hi, liquid_top:
         for k in range(count - 1):
             sep = fit.onsets[k + 1] - fit.onsets[k]
             vs = var[k] + var[k + 1] - 2 * cov[k, k + 1]
-            if not sep > 3.0 * math.sqrt(max(vs, 0.0)) or sep < 0.5 * p.spacing:
+            # resolved: the separation is significant and the band between the
+            # edges is wide enough to show (a lone edge with a non-Gaussian blur
+            # can pass for two edges closer than that)
+            if (not sep > 3.0 * math.sqrt(max(vs, 0.0)) or sep < 0.5 * p.spacing
+                    or (not (liquid_top and k == count - 2) and sep < PAIR_MIN_SEPARATION * fit.sigma)):
                 trial.valid, trial.reason = False, "edges not resolved"
     return trial
 
@@ -461,20 +478,29 @@ def _fit_group(p: _Profile, group, lo_limit, hi_limit, liquid_ri, prism_index):
             continue
         start = s1 if liquid_top else max(0.5 * s1, 1.05 * s_lo2)
         t = _try(p, window2, onsets, start, s_lo2, s_hi2, liquid_top)
-        if t.valid and t.bic < best.bic - 10.0:
+        if t.valid and t.bic < best.bic - BIC_MORE_TERMS:
             best = t
             if not liquid_top:
                 break  # one good pair is enough; the alternative start finds the same
-        elif not t.valid and t.reason == "edges not resolved" and t.bic < one.bic - 10.0:
+        elif not t.valid and t.reason == "edges not resolved" and t.bic < one.bic - BIC_MORE_TERMS:
             overlap = True
     if best.fit.count == 2 and not best.liquid_top and liquid_cands:
         onsets = list(best.fit.onsets) + [liquid_cands[-1] + s1]
         if onsets[2] - onsets[1] > 2 * s1:
             t = _try(p, window2, onsets, best.fit.sigma, s_lo2, s_hi2, True)
-            if t.valid and t.bic < best.bic - 10.0:
+            if t.valid and t.bic < best.bic - BIC_MORE_TERMS:
                 best = t
     if overlap and best.fit.count == 1:
         flags.append("edges_overlap")
+    if best.window.clipped.any():
+        fit = best.fit
+        lower = np.concatenate([[best.window.values[0]], np.full(fit.count - 1, 1e-5),
+                                [math.log(s_lo2 if fit.count > 1 else s_lo), -1e-9]])
+        upper = np.concatenate([[best.window.values[-1]], np.full(fit.count - 1, 1.0),
+                                [math.log(s_hi2 if fit.count > 1 else s_hi), 1e-9]])
+        theta0 = np.concatenate([fit.theta[: fit.count], [math.log(fit.sigma), 0.0]])
+        alt = em.fit(best.window, fit.count, theta0, lower, upper)
+        best.alt_onsets = alt.onsets
     return best, flags
 
 
@@ -504,7 +530,7 @@ def _levels_at_onset(fit: em.Fit, window: em.Window, k: int):
     e = np.array([1.0 if j <= k else float(em.reflectance(np.array(at), fit.onsets[j],
                                                             window.prism_index) ** fit.g)
                   for j in range(fit.count)])
-    q = fit.coef[-1] * tau
+    q = fit.trend * tau
     above = base + float(fit.amplitudes @ e) + q * float(e.sum())
     below = above - (fit.amplitudes[k] + q)
     return above, below
@@ -531,6 +557,19 @@ def _half_brightness(fit: em.Fit, window: em.Window, k: int):
     return float(xs[i] + frac * (xs[i + 1] - xs[i]))
 
 
+def _hidden_by_clipping(fit: em.Fit, window: em.Window, k: int) -> float:
+    """How far below onset ``k`` the fitted curve already reaches the clip level.
+
+    With the bright side clipped the sharp corner at the onset is not seen; the
+    onset is then an extrapolation of the rising part over this distance.
+    """
+    n = float(fit.onsets[k])
+    xs = np.linspace(max(n - 0.03, window.values[0]), n, 300)
+    curve = fit.curve(window, xs)
+    reach = np.flatnonzero(curve >= window.clip_level)
+    return float(n - xs[reach[0]]) if reach.size else 0.0
+
+
 def _terms(trial: _Trial, p: _Profile) -> list[_Term]:
     fit, window = trial.fit, trial.window
     rho = min(max(fit.autocorr, 0.0), 0.9)
@@ -543,6 +582,10 @@ def _terms(trial: _Trial, p: _Profile) -> list[_Term]:
         n = float(fit.onsets[k])
         stat = math.sqrt(max(cov[k, k], 0.0) * inflation)
         floor = math.hypot(FLOOR_BLUR_FRACTION * fit.sigma, FLOOR_SPACING_FRACTION * p.spacing)
+        hidden = _hidden_by_clipping(fit, window, k) if clipped_near else 0.0
+        floor = math.hypot(floor, FLOOR_CLIPPED_FRACTION * hidden)
+        if trial.alt_onsets is not None:
+            floor = math.hypot(floor, float(trial.alt_onsets[k]) - n)
         above, below = _levels_at_onset(fit, window, k)
         contrast = float(np.clip((above - below) / above, 0.0, 1.0)) if above > 0 else 0.0
         figures = {
@@ -551,6 +594,7 @@ def _terms(trial: _Trial, p: _Profile) -> list[_Term]:
             "snr": float(fit.amplitudes[k] / se[k]) if se[k] > 0 else float("inf"),
             "stat_uncertainty": stat,
             "floor": floor,
+            "hidden_by_clipping": hidden,
             "residual_scale": math.sqrt(fit.scale2),
             "residual_autocorrelation": fit.autocorr,
             "terms_in_fit": fit.count,
