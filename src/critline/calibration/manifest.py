@@ -127,7 +127,7 @@ def check_rows(rows: tuple[ManifestRow, ...], manifest: Path, instrument: Instru
             digest = _sha256(r.path)
         except OSError as exc:
             raise CalibrationError(f"{manifest}: cannot read photo {r.photo} ({exc.strerror})") from None
-        if digest in seen and seen[digest] != str(r.path):
+        if digest in seen:
             raise CalibrationError(f"{manifest}: photos {seen[digest]} and {r.photo} are the same file "
                                    "(same sha256): each reference needs its own photo")
         seen.setdefault(digest, r.photo)

@@ -90,10 +90,10 @@ def calibrate(
     from critline.calibration import compare, find_previous, write_calibration
     from critline.calibration.manifest import calibrate_manifest, parse_setup
 
+    if out.is_dir():
+        raise UsageError(f"{out}: is a folder; give a file name")
     if out.exists() and not overwrite:
         raise UsageError(f"{out}: already exists (refusing to overwrite; pass --overwrite)")
-    if out.exists() and out.is_dir():
-        raise UsageError(f"{out}: is a folder; give a file name")
     inst = _load_instrument(instrument)
     old = None
     if previous is not None:
