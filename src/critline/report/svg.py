@@ -23,10 +23,8 @@ def nice_step(span: float, target: int = 5) -> float:
         return 1.0
     raw = span / max(1, target)
     mag = 10 ** math.floor(math.log10(raw))
-    for m in (1, 2, 2.5, 5, 10):
-        if raw <= m * mag:
-            return m * mag
-    return 10 * mag
+    # the 1-2-5 step whose tick count is nearest the target (labels stay short: no 2.5 steps)
+    return min((m * mag for m in (1, 2, 5, 10)), key=lambda step: abs(span / step - target))
 
 
 def ticks(lo: float, hi: float, target: int = 5) -> list[float]:
