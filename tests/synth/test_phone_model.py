@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from critline.synth import Scene, render
+from critline.synth import Scene, render, scale_map
 from critline.synth.render import phone_capture
 from critline.synth.scene import clean_overrides
 
@@ -98,3 +98,17 @@ def test_glare_lights_the_surround_near_the_field():
     x = int(truth["field"]["cx"] + truth["field"]["r"] + 8)
     y = int(truth["field"]["cy"])
     assert _linear(glared)[y, x, 0] > _linear(plain)[y, x, 0] + 0.005
+
+
+def test_stray_light_lifts_the_dark_side_only_a_little():
+    from critline.synth.render import eyepiece_view
+
+    base = Scene(stone_ris=(1.60,), liquid_line=0.0, labels=False, spine=False, ink=0.0,
+                 **clean_overrides())
+    dark_u = float(scale_map(base).position(1.40))
+    plain, c0, _ = eyepiece_view(base, 100.0)
+    stray, _, _ = eyepiece_view(Scene(**{**base.__dict__, "stray_light": 0.05}), 100.0)
+    col, row = int(round(c0 + dark_u * 100)), int(round(c0))
+    assert stray[0, row, col] > plain[0, row, col] + 0.01
+    bright_col = int(round(c0 + float(scale_map(base).position(1.70)) * 100))
+    assert stray[0, row, bright_col] == pytest.approx(plain[0, row, bright_col], rel=0.06)

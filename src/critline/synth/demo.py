@@ -73,7 +73,8 @@ def _base(demo: dict, instrument: Instrument, rng: np.random.Generator) -> Scene
     return Scene(instrument=instrument, liquid_ri=demo["liquid_ri"], light=demo["light"],
                  scale_offset=demo["scale_offset"], scale_gain=demo["scale_gain"],
                  liquid_line=0.04, spacing_change=0.11, spacing_bow=0.01, u_first=-0.78, u_last=0.78,
-                 axis_v=-0.12, edge_blur=0.003, stone_abbe=float(rng.uniform(40, 65)))
+                 axis_v=-0.12, edge_blur=0.003, stone_abbe=float(rng.uniform(40, 65)),
+                 stray_light=0.02, illumination_curve=-0.04)
 
 
 def reference_values(ref: dict) -> list[float]:

@@ -213,7 +213,13 @@ def eyepiece_view(scene: Scene, ppu: float, rng: np.random.Generator | None = No
         profiles = gaussian_filter1d(profiles, scene.edge_blur * ppu * _OVERSAMPLE, axis=-1, mode="nearest")
     profiles = profiles.reshape(profiles.shape[0], size, _OVERSAMPLE).mean(axis=-1)
     u = ((np.arange(size) - c0) / ppu).astype(np.float32)
-    profiles = profiles * (1.0 + 0.5 * scene.illumination_slope * u)[None, :]
+    if scene.stray_light > 0:
+        # light scattered inside the instrument lifts the dark side evenly
+        inside = np.abs(u) <= 1.0
+        profiles = (1.0 - scene.stray_light) * profiles + scene.stray_light * profiles[:, inside].mean(
+            axis=1, keepdims=True)
+    illumination = 1.0 + 0.5 * scene.illumination_slope * u + scene.illumination_curve * (u * u - 1 / 3)
+    profiles = profiles * illumination[None, :]
     # field stop, rim falloff and off-axis crescent (radially symmetric terms, 2-D)
     rho2 = (u * u)[None, :] + (u * u)[:, None]
     soft = max(scene.field_softness * ppu, 0.7) / ppu

@@ -56,6 +56,8 @@ class Scene:
     spine: bool = True                        # line joining the graduations' bases
     edge_blur: float = 0.004                  # instrument's own blur along the axis (sigma, u units)
     illumination_slope: float = 0.05          # brightness change across the field along u
+    illumination_curve: float = 0.0           # and its curvature (uneven lamp)
+    stray_light: float = 0.0                  # share of light scattered evenly inside the instrument
     field_falloff: float = 0.1                # darkening toward the field stop's rim
     field_softness: float = 0.01              # width of the field stop's edge
     # --- the phone ----------------------------------------------------------------
@@ -211,6 +213,8 @@ def random_scene(seed: int, **overrides) -> Scene:
         spine=bool(rng.random() < 0.6),
         edge_blur=float(rng.uniform(0.001, 0.008)),
         illumination_slope=float(rng.uniform(-0.15, 0.15)),
+        illumination_curve=float(rng.uniform(-0.1, 0.1)),
+        stray_light=float(rng.uniform(0.0, 0.06)),
         field_falloff=float(rng.uniform(0.0, 0.25)),
         field_softness=float(rng.uniform(0.004, 0.03)),
         width=width,
