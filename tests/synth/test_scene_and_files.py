@@ -20,8 +20,8 @@ def _small(seed, **kw):
 def test_same_seed_same_bytes(tmp_path):
     for seed in (1, 2, 7):
         scene = _small(seed)
-        a = write_photo(tmp_path / f"a{seed}.jpg", scene, seed)
-        b = write_photo(tmp_path / f"b{seed}.jpg", _small(seed), seed)
+        a = write_photo(tmp_path / f"a{seed}.jpg", scene, seed).with_suffix(".json")
+        b = write_photo(tmp_path / f"b{seed}.jpg", _small(seed), seed).with_suffix(".json")
         assert (tmp_path / f"a{seed}.jpg").read_bytes() == (tmp_path / f"b{seed}.jpg").read_bytes()
         ta, tb = json.loads(a.read_text()), json.loads(b.read_text())
         ta.pop("photo"), tb.pop("photo")
@@ -111,7 +111,9 @@ def test_every_orientation_displays_the_rendered_frame(orientation):
 
 def test_sidecar_complete(tmp_path):
     scene = Scene(stone_ris=(1.544, 1.553), width=400, height=300, scale_offset=0.002)
-    sidecar = write_photo(tmp_path / "x.jpg", scene, 5)
+    photo = write_photo(tmp_path / "x.jpg", scene, 5)
+    assert photo == tmp_path / "x.jpg"
+    sidecar = photo.with_suffix(".json")
     truth = json.loads(sidecar.read_text())
     assert truth["schema"] == "critline.synth-truth/1"
     assert truth["status"] == "ok" and truth["light"] == "sodium"

@@ -69,7 +69,7 @@ def photo(
         scene = random_scene(seed, **overrides)
     except (TypeError, ValueError) as exc:
         raise UsageError(f"{out}: {exc}") from None
-    sidecar = write_photo(out, scene, seed, overwrite=overwrite)
+    sidecar = write_photo(out, scene, seed, overwrite=overwrite).with_suffix(".json")
     truth = json.loads(sidecar.read_text(encoding="utf-8"))
     if as_json:
         typer.echo(json.dumps(truth))

@@ -63,7 +63,7 @@ def write_photo(path, scene: Scene, seed: int, fmt: str | None = None, overwrite
     Returns
     -------
     Path
-        The sidecar's path.
+        The image's path (the sidecar is ``path.with_suffix('.json')``).
     """
     path = Path(path)
     fmt = fmt or SUFFIX_FORMATS.get(path.suffix.lower())
@@ -81,4 +81,4 @@ def write_photo(path, scene: Scene, seed: int, fmt: str | None = None, overwrite
     truth["format"] = fmt
     atomic_write_bytes(path, data, overwrite=overwrite)
     atomic_write_text(sidecar, json.dumps(truth, separators=(",", ":")) + "\n", overwrite=overwrite)
-    return sidecar
+    return path

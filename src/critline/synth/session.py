@@ -128,7 +128,7 @@ def write_session(folder, principal, facet_normal, base: Scene, seed: int, *, ro
                                                             polarisers, orientation, vary, plan,
                                                             polariser_mode)):
         path = folder / name
-        sidecar = write_photo(path, scene, seed + i, overwrite=overwrite)
+        sidecar = write_photo(path, scene, seed + i, overwrite=overwrite).with_suffix(".json")
         truth = json.loads(sidecar.read_text(encoding="utf-8"))
         truth["session"] = facts
         if stone:
