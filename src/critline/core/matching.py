@@ -31,7 +31,7 @@ from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy.stats import norm
+from scipy.special import ndtr
 
 from critline.core.materials import Material, load_materials
 from critline.core.session import RI_LIMITS, SPOT_PRECISION, ReadingError, SessionAnalysis
@@ -267,7 +267,7 @@ def _measured(analysis, ris, sg, spot, over_limit, character, sign, liquid_ri, u
 def _p_in_range(x: float, u: float, low: float, high: float) -> float:
     """Agreement of a reading ``x`` (standard uncertainty ``u``) with the range ``[low, high]``."""
     distance = max(low - x, x - high, 0.0)
-    return float(2.0 * norm.sf(distance / max(u, 1e-9)))
+    return math.erfc(distance / (max(u, 1e-9) * math.sqrt(2.0)))  # = 2 Phi(-d/u)
 
 
 def _fmt_range(a: float, b: float, digits: int = 3) -> str:
@@ -337,7 +337,7 @@ def _score(material: Material, m: _Measured) -> tuple[float, list[str], list[str
         # probability that a stone of this material is above the liquid: its index spread
         # uniformly over the natural range, the liquid's own index uncertain by LIQUID_UNCERTAINTY
         grid = np.linspace(index.low, index.high, 65)
-        p = float(np.mean(norm.cdf((grid - m.liquid_ri) / LIQUID_UNCERTAINTY)))
+        p = float(np.mean(ndtr((grid - m.liquid_ri) / LIQUID_UNCERTAINTY)))
         add(p, f"over the limit of {m.liquid_ri:.3f}: {what} index {_fmt_range(index.low, index.high)}")
 
     score = 1.0

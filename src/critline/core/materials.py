@@ -170,6 +170,15 @@ def _material_from_row(row: dict) -> Material:
                     f"sign {sign!r} disagrees with the middle of the alpha/beta/gamma ranges"
                 )
 
+    if character in ("uniaxial", "biaxial"):
+        # the birefringence of a typical stone (middle of the ranges) must be in the stated range
+        typical = max(i.mid for i in indices) - min(i.mid for i in indices)
+        if not (bire[0] - 0.002 <= typical <= bire[1] + 0.002):
+            raise ValueError(
+                f"birefringence {bire} does not hold {typical:.4f}, the difference of the middles "
+                "of the principal index ranges"
+            )
+
     sg = row.get("sg")
     sg_pair = None
     if sg is not None:

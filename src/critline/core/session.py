@@ -35,7 +35,7 @@ from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field, replace
 
 import numpy as np
-from scipy import stats
+from scipy.special import chdtrc  # chi-square survival function
 
 from critline.errors import UsageError
 
@@ -225,7 +225,7 @@ def _moves(readings: Sequence[_Reading]) -> bool:
         return False
     mean = _weighted_mean(readings).ri
     chi2 = sum(((r.ri - mean) / max(r.u, UNCERTAINTY_FLOOR)) ** 2 for r in readings)
-    return bool(stats.chi2.sf(chi2, len(readings) - 1) < MOVING_ALPHA)
+    return bool(chdtrc(len(readings) - 1, chi2) < MOVING_ALPHA)
 
 
 def _distinct(a: _Reading, b: _Reading, z: float) -> bool:
@@ -381,7 +381,7 @@ def _sinusoid_extreme(series: Sequence[_Reading], highest: bool) -> _Reading | N
     chi2 = float(np.sum(w * (y - design @ np.array([c, a, b])) ** 2))
     dof = len(series) - 3
     if dof >= 1:
-        if stats.chi2.sf(chi2, dof) < 1e-3:
+        if chdtrc(dof, chi2) < 1e-3:
             return None
         cov = cov * max(1.0, chi2 / dof)  # scale by the reduced chi-square when above 1
     radius = math.hypot(a, b)
@@ -546,7 +546,7 @@ def analyse_session(
     # Double refraction: a clear split at one position, or splits that together are more than
     # their uncertainties allow (chi-square over all positions where both rays were looked at).
     split_chi2 = sum((p.split / p.split_u) ** 2 for p in complete)
-    splits_add_up = bool(complete) and stats.chi2.sf(split_chi2, len(complete)) < MOVING_ALPHA
+    splits_add_up = bool(complete) and chdtrc(len(complete), split_chi2) < MOVING_ALPHA
     unpaired_clusters = None
     if singles:
         if complete:
