@@ -6,7 +6,7 @@ import json
 
 import pytest
 
-from critline.core.matching import identify
+from critline.core.matching import TIE_RATIO, identify
 from critline.core.materials import load_materials
 from critline.core.session import Observation, ReadingError, analyse_session
 from critline.instrument import DEFAULT
@@ -99,11 +99,16 @@ def test_session_analysis_feeds_identify():
 
 def test_scores_are_ranked_and_groups_partition_the_list():
     result = identify(ris=[1.66])
-    scores = [c.score for c in result.candidates]
-    assert scores == sorted(scores, reverse=True)
-    assert all(0.0 <= s <= 1.0 for s in scores)
+    score = {c.key: c.score for c in result.candidates}
+    assert all(0.0 <= s <= 1.0 for s in score.values())
     flat = [k for g in result.groups for k in g]
     assert flat == [c.key for c in result.candidates]
+    best = [max(score[k] for k in g) for g in result.groups]
+    assert best == sorted(best, reverse=True)
+    for group, top in zip(result.groups, best, strict=True):
+        assert all(score[k] >= TIE_RATIO * top for k in group)
+    for later in result.groups[1:]:
+        assert max(score[k] for k in later) < TIE_RATIO * best[0]
 
 
 def test_json_document():

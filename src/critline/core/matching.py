@@ -468,23 +468,25 @@ def identify(
     for material in table:
         score, agrees, conflicts = _score(material, m)
         scored.append(Candidate(material, material.aliases, score, tuple(agrees), tuple(conflicts)))
-    # near-equal scores: the material whose measured ranges are narrower fits more specifically
-    scored.sort(key=lambda c: (-round(c.score, 6), _width(c.material, m), c.material.key))
+    scored.sort(key=lambda c: (-c.score, c.material.key))
     fitting = [c for c in scored if c.score >= MIN_SCORE]
 
-    groups: list[list[str]] = []
-    leader_score = None
+    # near-ties: scores within TIE_RATIO of the group's best; inside a group the material whose
+    # compared ranges are narrower (the more specific fit) is listed first
+    grouped: list[list[Candidate]] = []
     for c in fitting:
-        if groups and c.score >= TIE_RATIO * leader_score:
-            groups[-1].append(c.material.key)
+        if grouped and c.score >= TIE_RATIO * grouped[-1][0].score:
+            grouped[-1].append(c)
         else:
-            groups.append([c.material.key])
-            leader_score = c.score
+            grouped.append([c])
+    for group in grouped:
+        group.sort(key=lambda c: (_width(c.material, m), -c.score, c.material.key))
     # the whole leading group is always listed, then the next best up to MAX_CANDIDATES
-    shown = max(MAX_CANDIDATES, len(groups[0]) if groups else 0)
-    candidates = tuple(fitting[:shown])
+    shown = max(MAX_CANDIDATES, len(grouped[0]) if grouped else 0)
+    ordered = [c for group in grouped for c in group]
+    candidates = tuple(ordered[:shown])
     listed = {c.material.key for c in candidates}
-    groups = [[k for k in g if k in listed] for g in groups]
+    groups = [[c.material.key for c in g if c.material.key in listed] for g in grouped]
     groups = [g for g in groups if g]
 
     notes = []
@@ -495,7 +497,7 @@ def identify(
         notes.append("No material in the table fits these readings: check the readings and the instrument.")
     leaders: list[Material] = []
     if candidates:
-        top = candidates[0].score
+        top = max(c.score for c in candidates)
         by_key = {c.material.key: c for c in candidates}
         leaders = [by_key[k].material for k in groups[0]]
         for c in candidates[len(leaders):]:
