@@ -87,6 +87,7 @@ class _Watcher:
         self.order: list[str] = []                       # stones in order of first photo
         self.groups: dict[str, StoneGroup] = {}
         self.counts = {"read": 0, "cached": 0}
+        self.overlays = True
 
     def look(self) -> tuple[list, int]:
         """Photos whose size is stable since the last look, and how many are still changing."""
@@ -118,7 +119,8 @@ class _Watcher:
         if hit is not None:
             self.counts["cached"] += 1
             return PhotoResult(item, hit[0], hit[1], cached=True)
-        task = ReadTask(os.fspath(item.path), item.display, sha, os.fspath(self.cache.overlay_dir(sha)))
+        overlay_dir = os.fspath(self.cache.overlay_dir(sha)) if self.overlays else None
+        task = ReadTask(os.fspath(item.path), item.display, sha, overlay_dir)
         reading, overlay = read_one(task, self.reader, self.instrument, self.calibration)
         if is_verdict(reading):
             self.cache.put(reading, overlay)
@@ -146,6 +148,7 @@ class _Watcher:
 def watch_folder(folder: str | Path, *, calibration=None, instrument=None, out_dir: str | Path,
                  interval: float = 2.0, max_idle: float | None = None, once: bool = False,
                  name_pattern: str | None = None, overwrite: bool = False, reader=None,
+                 overlays: bool = True,
                  echo: Callable[[str], None] = print,
                  sleep: Callable[[float], None] = time.sleep,
                  clock: Callable[[], float] = time.monotonic) -> int:
@@ -159,12 +162,15 @@ def watch_folder(folder: str | Path, *, calibration=None, instrument=None, out_d
         Stop when no photo has arrived for this long and none is still changing.
     once : bool
         Stop as soon as everything present has been read.
+    overlays : bool
+        Ask the reader for marked-up photos.
     echo : callable
         Where the lines go (stdout in the command); rejected photos also go to stderr.
     """
     from critline.report.write import write_reports
 
     w = _Watcher(folder, calibration, instrument, out_dir, name_pattern, reader or default_reader())
+    w.overlays = overlays
     start = last_new = clock()
     current = None
     try:

@@ -212,6 +212,7 @@ def watch(
     max_idle: float | None = typer.Option(None, "--max-idle", min=0.0, help="Stop after this many seconds "
                                           "without a new photo [default: run until Ctrl-C]."),
     once: bool = typer.Option(False, "--once", help="Read what is there (once its size is stable) and stop."),
+    no_overlays: bool = typer.Option(False, "--no-overlays", help="Skip the marked-up photos (quicker)."),
     name_pattern: str | None = typer.Option(None, "--name-pattern", help="As for `critline batch`."),
     overwrite: bool = typer.Option(False, "--overwrite", help="As for `critline batch` (final report)."),
 ) -> None:
@@ -230,6 +231,7 @@ def watch(
     out_dir = out if out is not None else default_out(folder)
     code = watch_folder(folder, calibration=cal, instrument=inst, out_dir=out_dir, interval=interval,
                         max_idle=max_idle, once=once, name_pattern=name_pattern, overwrite=overwrite,
+                        overlays=not no_overlays,
                         echo=lambda text: print(text, flush=True))
     if code:
         raise typer.Exit(code if code else EXIT_REJECTED)
