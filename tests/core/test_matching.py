@@ -138,3 +138,13 @@ def test_json_document():
 def test_bad_input(kwargs, message):
     with pytest.raises(ReadingError, match=message):
         identify(**kwargs)
+
+
+def test_blinking_spot_is_matched_at_both_ends():
+    # pearl (aragonite) spot blinks between about 1.53 and 1.68 (common practice)
+    obs = [Observation(edges=((1.53, 0.01),), spot=True), Observation(edges=((1.68, 0.01),), spot=True)]
+    analysis = analyse_session(obs)
+    assert "spot_blinks" in analysis.flags
+    result = identify(analysis)
+    assert "pearl" in keys(result)
+    assert "nephrite" not in keys(result)  # 1.60-1.64 (from memory) holds neither end

@@ -137,6 +137,8 @@ class _Measured:
     sign: str | None = None
     sg: tuple[float, float] | None = None
     spot: float | None = None
+    #: lowest and highest spot reading when the spot blinks (aggregates of birefringent minerals)
+    spot_span: tuple[float, float] | None = None
     over_limit: bool = False
     liquid_ri: float = DEFAULT_INSTRUMENT.liquid_ri
 
@@ -216,6 +218,8 @@ def _measured(analysis, ris, sg, spot, over_limit, character, sign, liquid_ri, u
         ) and "possible_anomalous_double_refraction" not in analysis.flags:
             bire = (analysis.birefringence, analysis.birefringence_uncertainty or u * math.sqrt(2))
         found_char = analysis.optic_character if analysis.optic_character != "undetermined" else None
+        spots = [ri for o in analysis.observations if o.spot for ri, _ in o.edges]
+        spot_span = (min(spots), max(spots)) if "spot_blinks" in analysis.flags and spots else None
         return _Measured(
             low=low,
             high=high,
@@ -225,6 +229,7 @@ def _measured(analysis, ris, sg, spot, over_limit, character, sign, liquid_ri, u
             sign=sign or analysis.optic_sign,
             sg=sg_pair,
             spot=spot_value if spot_value is not None else analysis.spot_ri,
+            spot_span=None if spot_value is not None else spot_span,
             over_limit=over_limit or analysis.over_limit,
             liquid_ri=liquid,
         )
@@ -325,9 +330,11 @@ def _score(material: Material, m: _Measured) -> tuple[float, list[str], list[str
         add(p, f"SG {x:.2f} vs {_fmt_range(*material.sg, digits=2)}")
 
     if m.spot is not None:
-        # spot readings are good to about +-0.01: widen the range by that before the Gaussian tail
-        p = _p_in_range(m.spot, SPOT_PRECISION / 2, span_low - SPOT_PRECISION, span_high + SPOT_PRECISION)
-        add(p, f"spot {m.spot:.2f} vs {_fmt_range(span_low, span_high, 2)} (+-{SPOT_PRECISION:.2f})")
+        # spot readings are good to about +-0.01: widen the range by that before the Gaussian tail;
+        # a blinking spot is matched at both ends
+        for value in (m.spot_span or (m.spot,)):
+            p = _p_in_range(value, SPOT_PRECISION / 2, span_low - SPOT_PRECISION, span_high + SPOT_PRECISION)
+            add(p, f"spot {value:.2f} vs {_fmt_range(span_low, span_high, 2)} (+-{SPOT_PRECISION:.2f})")
 
     if m.over_limit:
         # every ray the refractometer did not show must be above the liquid
