@@ -77,7 +77,8 @@ ul.tests,ul.notes{margin:4px 0;padding-left:18px}
 .notes li{color:var(--muted)}
 .thumbs{display:flex;flex-wrap:wrap;gap:10px}
 figure{margin:0;width:184px}
-figure img{width:184px;height:auto;display:block;border:1px solid var(--rule);background:#111}
+figure img{width:184px;height:138px;object-fit:contain;display:block;border:1px solid var(--rule);
+background:#15130f}
 figcaption{font-size:12px;color:var(--muted);overflow-wrap:anywhere}
 .profiles{display:flex;flex-wrap:wrap;gap:8px}
 .profiles figure{width:auto}
@@ -172,6 +173,9 @@ def _edge_series(stone):
 def _facts(stone) -> str:
     a = stone.analysis
     if a is None:
+        if stone.usable:
+            return ('<p class="pm">The readings could not be reduced to properties '
+                    '(the reason is below); every reading is listed at the end of this card.</p>')
         return '<p class="pm">No usable reading: nothing could be derived for this stone.</p>'
     rows = []
     if getattr(a, "over_limit", False):
@@ -322,7 +326,8 @@ def _glance(result) -> str:
         if a is None:
             ri = "not analysed"
         elif getattr(a, "over_limit", False):
-            ri = "over the limit"
+            bound = _ri(getattr(a, "ri_low", None), 3)
+            ri = "over the limit" + (f" (above {bound})" if bound != "—" else "")
         else:
             lo, hi = _ri(getattr(a, "ri_low", None)), _ri(getattr(a, "ri_high", None))
             ri = lo if hi in ("—", lo) else f"{lo} – {hi}"
@@ -343,7 +348,9 @@ def batch_html(result, *, generated: str | None = None) -> str:
     cal = result.calibration_info or {}
     if result.calibration_id:
         cal_text = f"{result.calibration_id}"
-        extra = ", ".join(f"{k} {v}" for k, v in cal.items() if k != "id")
+        labels = {"created": "made", "light": "light", "model": "model",
+                  "residual_rms": "residual rms", "valid_range": "valid"}
+        extra = ", ".join(f"{labels.get(k, k)} {v}" for k, v in cal.items() if k != "id")
         if extra:
             cal_text += f" ({extra})"
     else:
