@@ -135,29 +135,41 @@ def thumbnail_data_uri(path: str | Path, size: int = THUMB_SIZE) -> str | None:
 
 
 def _edge_series(stone):
-    """Points for the rotation plot: each stone edge of each usable photo, as low or high edge."""
+    """Points for the rotation plot: each stone edge of each usable photo, as low or high edge.
+
+    At one rotation the lower of two distinct readings (two edges in one photo, or one edge in
+    each of two polariser photos) is the low edge; a reading alone at its rotation goes with the
+    nearer end of the stone's RI range.
+    """
     a = stone.analysis
     lo, hi = r4(getattr(a, "ri_low", None)), r4(getattr(a, "ri_high", None))
     usable = stone.usable
     rotation_known = any(p.item.rotation is not None for p in usable)
-    points = []
+    by_x: dict[float, list] = {}
     for k, p in enumerate(usable, start=1):
         x = p.item.rotation if rotation_known else k
         if x is None:
             continue
-        edges = sorted(p.reading.stone_edges, key=lambda e: e.ri)
-        for j, e in enumerate(edges):
-            if len(edges) == 2:
-                series = "low" if j == 0 else "high"
+        for e in p.reading.stone_edges:
+            by_x.setdefault(float(x), []).append((p, e))
+    points = []
+    for x, group in by_x.items():
+        values = [e.ri for _, e in group]
+        spread = max(values) - min(values)
+        worst = max(max(e.uncertainty, 1e-4) for _, e in group)
+        split = len(group) > 1 and spread > 3.0 * math.sqrt(2.0) * worst
+        middle = 0.5 * (max(values) + min(values))
+        for p, e in group:
+            if split:
+                series = "low" if e.ri <= middle else "high"
             elif lo is not None and hi is not None and hi - lo > 1e-4:
                 series = "low" if abs(e.ri - lo) <= abs(e.ri - hi) else "high"
             else:
                 series = "low"
             marker = "pol" if p.item.polariser is not None else "open"
             label = (f"{p.item.display}: {e.ri:.4f} ± {e.uncertainty:.4f} "
-                     f"(rotation {p.item.rotation if p.item.rotation is not None else 'unknown'}, "
-                     f"polariser {p.item.polariser_setting})")
-            points.append((float(x), float(e.ri), float(max(e.uncertainty, 1e-4)), series, marker, label))
+                     f"(rotation {_deg(p.item.rotation)}, polariser {p.item.polariser_setting})")
+            points.append((x, float(e.ri), float(max(e.uncertainty, 1e-4)), series, marker, label))
     levels = []
     if lo is not None:
         levels.append((lo, f"low {lo:.4f}", svg.LOW))
@@ -296,7 +308,7 @@ def _stone(stone, index: int) -> str:
     if a is not None:
         tag.append(_e(getattr(a, "optic_character", "") or "undetermined"))
     tag.append(f"{len(stone.usable)} of {len(stone.photos)} photos used")
-    points, levels, rotation_known = _edge_series(stone) if a is not None else ([], [], True)
+    points, levels, rotation_known = _edge_series(stone)
     plot = svg.rotation_plot(points, levels=levels, rotation_known=rotation_known,
                              title=f"readings against rotation, {stone.name}")
     legend = ('<p class="legend"><b class="low">●</b> lower edge · <b class="high">■</b> upper edge · '
