@@ -64,3 +64,19 @@ def test_cli_usage_error_exit_2(capsys):
     assert main(["--help"]) == 0
     out = capsys.readouterr().out
     assert "toxic" in out  # contact-liquid caution in the help (common practice)
+
+
+def test_instrument_wrong_type_is_a_clear_error(tmp_path):
+    f = tmp_path / "inst.toml"
+    f.write_text("first = 'x'\n")
+    with pytest.raises(InstrumentError, match="first must be a float"):
+        load_instrument(f)
+
+
+def test_atomic_write_gives_ordinary_file_mode(tmp_path):
+    import os
+
+    target = atomic_write_text(tmp_path / "a.txt", "x")
+    umask = os.umask(0)
+    os.umask(umask)
+    assert target.stat().st_mode & 0o777 == 0o666 & ~umask

@@ -21,6 +21,10 @@ def atomic_write_bytes(path: str | Path, data: bytes, overwrite: bool = True) ->
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     try:
+        # mkstemp makes 0600 files; give the file the mode an ordinary open() would
+        umask = os.umask(0)
+        os.umask(umask)
+        os.fchmod(fd, 0o666 & ~umask)
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
             fh.flush()

@@ -78,7 +78,13 @@ def load_instrument(path: str | Path | None) -> Instrument:
     unknown = set(data) - known
     if unknown:
         raise InstrumentError(f"{path}: unknown keys {sorted(unknown)}")
-    inst = replace(DEFAULT, **data)
+    for key, value in data.items():
+        expected = type(getattr(DEFAULT, key))
+        ok = isinstance(value, expected) or (expected is float and isinstance(value, int))
+        if not ok or isinstance(value, bool):
+            raise InstrumentError(f"{path}: {key} must be a {expected.__name__}, got {value!r}")
+    inst = replace(DEFAULT, **{k: (float(v) if isinstance(getattr(DEFAULT, k), float) else v)
+                               for k, v in data.items()})
     if not (1.0 < inst.first < inst.last < 3.5) or inst.step <= 0 or inst.count < 5:
         raise InstrumentError(f"{path}: first/last/step do not describe a usable scale")
     return inst
