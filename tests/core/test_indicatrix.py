@@ -106,3 +106,19 @@ def test_bad_input_is_rejected():
         section_indices((1.5, 1.5), [0, 0, 1], 0)
     with pytest.raises(ValueError):
         section_indices((1.5, 1.5, 1.5), [0, 0, 0], 0)
+
+
+@settings(max_examples=60, deadline=None)
+@given(normal=unit_vectors, az=azimuths)
+def test_section_indices_solve_fresnels_equation_of_wave_normals(normal, az):
+    # independent check (M. Born and E. Wolf, "Principles of Optics", optics of crystals):
+    # the two indices n for wave normal k satisfy sum_i k_i^2 / (1/n^2 - 1/n_i^2) = 0,
+    # used here with the denominators cleared: sum_i k_i^2 prod_{j != i} (1/n^2 - 1/n_j^2) = 0
+    principal = np.array(TOPAZ)
+    k = grazing_direction(normal, az)
+    inv = 1.0 / principal**2
+    scale = np.ptp(inv) ** 2
+    for n in section_indices(TOPAZ, normal, az):
+        d = 1.0 / n**2 - inv
+        residual = k[0] ** 2 * d[1] * d[2] + k[1] ** 2 * d[0] * d[2] + k[2] ** 2 * d[0] * d[1]
+        assert abs(residual) <= 1e-9 * scale
