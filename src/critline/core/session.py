@@ -35,7 +35,7 @@ from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field, replace
 
 import numpy as np
-from scipy.special import chdtrc  # chi-square survival function
+from scipy.special import chdtrc, ndtri  # chi-square survival, inverse normal CDF
 
 from critline.errors import UsageError
 
@@ -416,7 +416,18 @@ def _extreme(series: Sequence[_Reading], highest: bool, uniaxial: bool = False) 
     sampled = pick(series, key=lambda r: r.ri)
     amplitude = 0.5 * (max(r.ri for r in series) - min(r.ri for r in series))
     bound = amplitude * (1.0 - math.cos(math.radians(_largest_gap(series))))
-    return _Reading(sampled.ri, sampled.u, sampled.rotation, slack=bound)
+    # when several readings sit near the extreme, the largest of them is biased outward by the
+    # expected maximum of that many noise draws: count it as uncertainty
+    near = sum(1 for r in series if abs(r.ri - sampled.ri) <= 2.0 * max(r.u, sampled.u))
+    u = sampled.u * math.hypot(1.0, _expected_max_of_normals(near))
+    return _Reading(sampled.ri, u, sampled.rotation, slack=bound)
+
+
+def _expected_max_of_normals(k: int) -> float:
+    """Expected largest of ``k`` standard normal draws (Blom's approximation, G. Blom 1958)."""
+    if k < 2:
+        return 0.0
+    return float(ndtri((k - 0.375) / (k + 0.25)))
 
 
 # --------------------------------------------------------------------------- analysis
