@@ -143,18 +143,21 @@ def write_session(folder: Path, case: StoneCase, seed: int, *, width=1000, heigh
 
 
 def write_strained_isotropic(folder: Path, seed: int, n: float = 1.728, *, width=1000, height=750):
-    """A singly refractive stone with weak, erratic splitting at some rotations (strain).
+    """A singly refractive stone with weak, erratic splitting at one rotation (strain).
 
     Synthetic spinel 1.728 (Webster, Gems: 1.727-1.730 for flame-fusion spinel; from memory).
-    The splitting follows no indicatrix: 0.002 at 45 degrees, none elsewhere.
+    The splitting follows no indicatrix: 0.003 at 45 degrees (the polariser separates the two
+    edges there), none at the other rotations.
     """
     from critline.synth import Scene, write_photo
 
-    splits = {0: 0.0, 45: 0.002, 90: 0.0, 135: 0.0}
+    splits = {0: 0.0, 45: 0.003, 90: 0.0, 135: 0.0}
     paths = []
     for k, (rot, split) in enumerate(splits.items()):
-        ris = (n,) if split == 0 else (n, n + split)
-        scene = Scene(stone_ris=ris, width=width, height=height, axis_angle_deg=88.0 + 4 * k)
-        paths.append(folder / f"r{rot:03d}_none.jpg")
-        write_photo(paths[-1], scene, seed * 100 + k)
+        for tag, pol in (("pol0", "low"), ("pol90", "high")):
+            ris = (n,) if split == 0 else (n, n + split)
+            scene = Scene(stone_ris=ris, polariser=pol if split else "both", width=width,
+                          height=height, axis_angle_deg=88.0 + 4 * k)
+            paths.append(folder / f"r{rot:03d}_{tag}.jpg")
+            write_photo(paths[-1], scene, seed * 100 + 2 * k + (tag == "pol90"))
     return paths
