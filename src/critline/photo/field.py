@@ -234,7 +234,7 @@ def find_field(grey: np.ndarray, reduce: int = 1, seed: int = 0) -> FieldResult:
     outside_v = g[(d > 1.08 * r) & (d < 1.35 * r)]
     if inside_v.size < 50:
         return FieldResult(None, "no circular field stop found (not an eyepiece view?)")
-    field_level = float(np.percentile(inside_v, 90))
+    field_level = float(np.percentile(inside_v, 98))
     surround = float(np.percentile(outside_v, 50)) if outside_v.size > 50 else float(lo)
     contrast = (field_level - surround) / max(field_level, 1e-6)
     # where the field is bright the surround must be dark right across the stop
@@ -243,7 +243,7 @@ def find_field(grey: np.ndarray, reduce: int = 1, seed: int = 0) -> FieldResult:
                          {"field_level": field_level, "surround_level": surround, "threshold": level})
     if support < 0.3:
         return FieldResult(None, f"no circular field stop found (best circle only {support:.0%} outlined)")
-    if contrast < 0.6:
+    if contrast < 0.5:
         return FieldResult(None, f"no dark surround around a bright field (contrast {contrast:.2f})")
     outside_frac = float(np.mean(outside_v > surround + 0.5 * (field_level - surround))) if outside_v.size else 0
     if outside_frac > 0.15:

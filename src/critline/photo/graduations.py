@@ -218,7 +218,34 @@ def _lengths(dark: np.ndarray, rows: np.ndarray, col: GraduationColumn, max_len:
     left = mask[:, lo_edge:col.v_lo][:, ::-1]
     run_r = np.cumprod(right, axis=1).sum(axis=1) if right.shape[1] else np.zeros(len(r))
     run_l = np.cumprod(left, axis=1).sum(axis=1) if left.shape[1] else np.zeros(len(r))
-    return (col.v_hi - col.v_lo + 1) + run_r + run_l
+    return (col.v_hi - col.v_lo + 1) + run_r + run_l, run_r, run_l
+
+
+def _label_darkness(dark, rows, col, run_r, run_l, period, radius, inside):
+    """Darkness beyond the tips of the longest graduations, beside each line: printed values sit
+    there beside the long graduations (when the scale is labelled).  Robust z-scores per line."""
+    n = dark.shape[1]
+    long_r = float(np.percentile(run_r, 95)) if len(run_r) else 0.0
+    long_l = float(np.percentile(run_l, 95)) if len(run_l) else 0.0
+    gap = max(2, int(0.02 * radius))
+    width = max(6, int(0.25 * radius))
+    if long_r >= long_l:
+        c0 = col.v_hi + 1 + int(long_r) + gap
+        cols = slice(min(n, c0), min(n, c0 + width))
+    else:
+        c1 = col.v_lo - int(long_l) - gap
+        cols = slice(max(0, c1 - width), max(0, c1))
+    if cols.stop - cols.start < 3:
+        return np.zeros(len(rows))
+    h = max(1, int(round(1.2 * period)))
+    zone = np.where(inside[:, cols], dark[:, cols], 0.0).mean(axis=1)
+    csum = np.concatenate([[0.0], np.cumsum(zone)])
+    r = np.round(rows).astype(int)
+    lo, hi = np.clip(r - h, 0, len(zone)), np.clip(r + h + 1, 0, len(zone))
+    val = (csum[hi] - csum[lo]) / np.maximum(hi - lo, 1)
+    med = float(np.median(val))
+    mad = 1.4826 * float(np.median(np.abs(val - med))) + 1e-6
+    return np.clip((val - med) / mad, -3, 10)
 
 
 def _assign(pos: np.ndarray, period: float):
@@ -286,10 +313,12 @@ def find_graduations(frame: FieldFrame, instrument: Instrument, dark: np.ndarray
         Relative darkness of the frame (:func:`normalised`).
     col : GraduationColumn
         From :func:`find_column`.
-    values_down : bool or None
+    values_down : bool, None or callable
         Whether the values increase down the rows, from the physics (the dark
         side of the shadow is the low-index side); None when the profile shows
         no step (the result then carries the flag ``direction_undetermined``).
+        A callable ``f(row_lo, row_hi)`` is asked once the lines are found,
+        with the rows they span (so the field stop's rim does not count).
 
     Returns
     -------
@@ -341,8 +370,11 @@ def find_graduations(frame: FieldFrame, instrument: Instrument, dark: np.ndarray
         pos, k, prom = pos[good], k[good], prom[good]
         coef, cov, _ = _fit(k, pos, deg)
     max_len = int(max(4 * (col.v_hi - col.v_lo + 1), 0.1 * frame.radius))
-    lengths = _lengths(dark, pos, col, max_len)
+    lengths, run_r, run_l = _lengths(dark, pos, col, max_len)
+    labels = _label_darkness(dark, pos, col, run_r, run_l, col.period, frame.radius, frame.inside)
     flags = []
+    if callable(values_down):  # decided from the brightness within the scale's extent
+        values_down = values_down(float(pos.min() - 2 * col.period), float(pos.max() + 2 * col.period))
     if values_down is None:
         values_down = True
         flags.append("direction_undetermined")
@@ -351,7 +383,7 @@ def find_graduations(frame: FieldFrame, instrument: Instrument, dark: np.ndarray
         pos = (n - 1) - pos
         k = -k
         order = np.argsort(pos)
-        pos, k, lengths, prom = pos[order], k[order], lengths[order], prom[order]
+        pos, k, lengths, prom, labels = pos[order], k[order], lengths[order], prom[order], labels[order]
         dark = dark[::-1, ::-1]
         profile = profile[::-1]
         col = GraduationColumn(col.period, n - 1 - col.v_hi, n - 1 - col.v_lo, col.periodicity)
@@ -359,8 +391,8 @@ def find_graduations(frame: FieldFrame, instrument: Instrument, dark: np.ndarray
     if not values_down:
         local_noise = local_noise[::-1]
     coef_rel, _, _ = _fit(k, pos, deg)
-    offset, margin, phase_margin, details = _identify(k, pos, lengths, coef_rel, profile, local_noise,
-                                                      frame, col, instrument)
+    offset, margin, phase_margin, details = _identify(k, pos, lengths, labels, coef_rel, profile,
+                                                      local_noise, frame, col, instrument)
     if margin < 1.0:
         raise GraduationsNotFound(
             f"graduations found but their values are ambiguous (identification margin {margin:.1f})")
@@ -423,7 +455,7 @@ def _pattern_score(lengths, absolute, long_every, medium_every, scale):
     return 1.25 * (top - ms) / scale
 
 
-def _identify(k, pos, lengths, coef, profile, noise, frame, col, instrument):
+def _identify(k, pos, lengths, labels, coef, profile, noise, frame, col, instrument):
     """Absolute index of the graduations: the offset ``c`` with absolute index ``k + c``.
 
     Every candidate offset is scored as a template match: at each integer
@@ -473,14 +505,26 @@ def _identify(k, pos, lengths, coef, profile, noise, frame, col, instrument):
     present = z >= 0.5
     evidence = np.where(present, 1.0, (2 * np.clip(z, 0, 1) - 1) * vis)
     evidence = np.where(usable, evidence, 0.0)
-    med_all = max(float(np.median(lengths)), 1.0)
+    # the pattern is read from the lines in the bright part (lengths in the dark are unreliable)
+    lvl = band_level[found]
+    bright_lines = lvl >= 0.6 * float(np.percentile(lvl, 90))
+    if bright_lines.sum() < 12:
+        bright_lines = np.ones(len(k), bool)
+    med_all = max(float(np.median(lengths[bright_lines])), 1.0)
+    has_labels = instrument.labelled_every and float(np.percentile(labels[bright_lines], 95)) > 4.0
     scores, pattern, templates = {}, {}, {}
     for c in range(-int(k.max()) - 2, count + 2 - int(k.min())):
         absm = m + c
         on = (absm >= 0) & (absm <= count - 1)
         tmpl = float(np.sum(np.where(on, evidence, -evidence)))
         # the pattern over all lines found (it is periodic; the range is the template's business)
-        corr = _pattern_score(lengths, k + c + base, le, me, med_all)
+        absolute = k[bright_lines] + c + base
+        corr = _pattern_score(lengths[bright_lines], absolute, le, me, med_all)
+        if has_labels:
+            lab = absolute % instrument.labelled_every == 0
+            if lab.any() and (~lab).any():
+                corr += 0.1 * float(np.clip(np.median(labels[bright_lines][lab])
+                                            - np.median(labels[bright_lines][~lab]), -5, 5))
         pattern[c] = corr
         templates[c] = tmpl
         # weak prior: an eyepiece centres its scale in the field stop (a few tenths of a radius)

@@ -54,47 +54,81 @@ class Profile:
     figures: dict = field(default_factory=dict)
 
 
-def _edge_tilt(lum: np.ndarray, cols: np.ndarray, ok: np.ndarray, v_ref: float, period: float) -> float:
-    """Slope (rows per column) of the strongest brightness step across column blocks."""
-    nb = 8
-    blocks = np.array_split(np.arange(len(cols)), nb)
-    rows_found, v_found, strength = [], [], []
+def _smooth_gradient(prof: np.ndarray, sigma: float) -> np.ndarray:
+    sm = cv2.GaussianBlur(prof.astype(np.float32).reshape(-1, 1), (1, 0), sigmaX=0, sigmaY=sigma).ravel()
+    return np.gradient(sm)
+
+
+def _fill(prof: np.ndarray) -> np.ndarray:
+    good = np.isfinite(prof)
+    if good.sum() < 2:
+        return np.zeros_like(prof)
+    idx = np.flatnonzero(good)
+    return np.interp(np.arange(len(prof)), idx, prof[idx])
+
+
+def _edge_tilt(lum: np.ndarray, cols: np.ndarray, ok: np.ndarray, period: float) -> float:
+    """Slope (rows per column) of the main brightness step across the columns.
+
+    The gradient of each block of columns' median profile is aligned with
+    the gradient of the median profile of all columns, in a window around the
+    strongest step (cross-correlation, parabolic sub-pixel peak); a robust
+    straight line (Theil-Sen) through the block shifts against the block
+    positions gives the slope.  Zero when no clear step is seen.
+    """
+    from scipy.stats import theilslopes
+
     sig = max(1.0, period / 2)
+    masked = np.where(ok, lum, np.nan)
+    with np.errstate(all="ignore"):
+        ref = np.nanmedian(masked, axis=1)
+    valid = np.isfinite(ref)
+    if valid.sum() < 40:
+        return 0.0
+    ref = _fill(ref)
+    d_ref = _smooth_gradient(ref, sig)
+    d_ref[~valid] = 0
+    vi = np.flatnonzero(valid)
+    margin = int(3 * sig)
+    d_ref[: vi.min() + margin] = 0
+    d_ref[vi.max() - margin:] = 0
+    i0 = int(np.argmax(np.abs(d_ref)))
+    if d_ref[i0] == 0:
+        return 0.0
+    half_w = int(max(10, 4 * period))
+    max_shift = int(max(4, 3 * period))
+    lo, hi = i0 - half_w, i0 + half_w + 1
+    if lo - max_shift < 0 or hi + max_shift > len(ref):
+        return 0.0
+    tmpl = d_ref[lo:hi]
+    tmpl = tmpl - tmpl.mean()
+    blocks = np.array_split(np.arange(len(cols)), 10)
+    shifts, where = [], []
     for b in blocks:
         if len(b) < 3:
             continue
-        sub = np.where(ok[:, b], lum[:, b], np.nan)
-        good = np.isfinite(sub).sum(axis=1) >= max(2, len(b) // 2)
-        if good.sum() < 20:
+        with np.errstate(all="ignore"):
+            pb = np.nanmedian(masked[:, b], axis=1)
+        seg_ok = np.isfinite(pb[lo - max_shift:hi + max_shift])
+        if seg_ok.mean() < 0.95:
             continue
-        prof = np.nanmedian(np.where(good[:, None], sub, 0.0), axis=1).astype(np.float32)
-        prof[~good] = np.nan
-        idx = np.flatnonzero(good)
-        prof = np.interp(np.arange(len(prof)), idx, prof[idx]).astype(np.float32)
-        sm = cv2.GaussianBlur(prof.reshape(-1, 1), (1, 0), sigmaX=0, sigmaY=sig).ravel()
-        d = np.gradient(sm)
-        d[~good] = 0
-        d[: idx.min() + int(3 * sig)] = 0
-        d[idx.max() - int(3 * sig):] = 0
-        i = int(np.argmax(np.abs(d)))
-        if 0 < i < len(d) - 1 and d[i] != 0:
-            a, c = d[i - 1], d[i + 1]
-            den = a - 2 * d[i] + c
-            off = 0.5 * (a - c) / den if den != 0 else 0.0
-            rows_found.append(i + float(np.clip(off, -1, 1)))
-            v_found.append(float(np.mean(cols[b])))
-            strength.append(abs(d[i]))
-    if len(rows_found) < 4:
+        db = _smooth_gradient(_fill(pb), sig)
+        cc = np.array([np.dot(tmpl, db[lo + sh:hi + sh] - db[lo + sh:hi + sh].mean())
+                       for sh in range(-max_shift, max_shift + 1)])
+        j = int(np.argmax(cc))
+        if not (0 < j < len(cc) - 1):
+            continue
+        seg = db[lo + j - max_shift:hi + j - max_shift]
+        corr = cc[j] / (np.linalg.norm(tmpl) * np.linalg.norm(seg - seg.mean()) + 1e-12)
+        if corr < 0.7:
+            continue
+        den = cc[j - 1] - 2 * cc[j] + cc[j + 1]
+        off = 0.5 * (cc[j - 1] - cc[j + 1]) / den if den < 0 else 0.0
+        shifts.append(j - max_shift + float(np.clip(off, -1, 1)))
+        where.append(float(np.mean(cols[b])))
+    if len(shifts) < 4:
         return 0.0
-    r, v, s = np.array(rows_found), np.array(v_found), np.array(strength)
-    if np.median(s) <= 0:
-        return 0.0
-    # the same step in every block: rows agree within a few spacings
-    med = np.median(r)
-    keep = np.abs(r - med) < 3 * period
-    if keep.sum() < 4:
-        return 0.0
-    slope, _ = np.polyfit(v[keep], r[keep], 1)
+    slope = theilslopes(np.array(shifts), np.array(where))[0]
     return float(np.clip(slope, -0.2, 0.2))
 
 
@@ -129,7 +163,7 @@ def brightness_profile(frame: FieldFrame, v_lo: int, v_hi: int, exclude: int, pe
     lum = (0.2126 * lin[..., 0] + 0.7152 * lin[..., 1] + 0.0722 * lin[..., 2]).astype(np.float32)
     ok = frame.inside[:, cand] & (np.abs(v[cand])[None, :] < 0.9 * chord[:, None])
     v_ref = (v_lo + v_hi) / 2 - half
-    tilt = _edge_tilt(lum, v[cand], ok, v_ref, period)
+    tilt = _edge_tilt(lum, v[cand], ok, period)
     if tilt != 0.0:
         shift = tilt * (v[cand] - v_ref)  # rows to add so the edge sits where it does at v_ref
         grid_r = (np.arange(n)[:, None] + shift[None, :]).astype(np.float32)

@@ -9,6 +9,7 @@ their values -> shadow edges on the value axis -> RI (nominal or calibrated)
 from __future__ import annotations
 
 import math
+import warnings
 from pathlib import Path
 
 import cv2
@@ -84,8 +85,8 @@ def _crude_analysis(values, brightness, noise, liquid_ri):
     return _CrudeAnalysis((_CrudeEdge(grid[j], 0.002, "stone", (hi - lo) / hi, 0.001),), "ok")
 
 
-def _dominant_step(profile: Profile, period: float, half: int, radius: float):
-    """Sign and relative size of the strongest brightness step along the rows."""
+def _dominant_step(profile: Profile, period: float, half: int, radius: float, lo=None, hi=None):
+    """Sign and relative size of the strongest brightness step along the rows (within lo..hi)."""
     rows, b = profile.rows, profile.brightness
     if len(rows) < 20:
         return None, 0.0
@@ -95,15 +96,18 @@ def _dominant_step(profile: Profile, period: float, half: int, radius: float):
     sm = cv2.GaussianBlur(bi.reshape(-1, 1), (1, 0), sigmaX=0, sigmaY=sig).ravel()
     d = np.gradient(sm)
     inner = np.abs(grid - half) < 0.93 * radius
+    if lo is not None:
+        inner &= (grid >= lo) & (grid <= hi)
     d = np.where(inner, d, 0)
     i = int(np.argmax(np.abs(d)))
-    w = int(3 * sig)
-    before = np.median(bi[max(0, i - 4 * w):max(1, i - w)]) if i - w > 0 else np.nan
-    after = np.median(bi[i + w:i + 4 * w]) if i + w < len(bi) else np.nan
-    top = float(np.nanpercentile(bi[inner], 95)) if inner.any() else float(np.max(bi))
-    if not (np.isfinite(before) and np.isfinite(after)) or top <= 0:
+    if d[i] == 0:
         return None, 0.0
-    rel = (after - before) / top
+    # size of the step: smoothed levels a few sigma either side (as far as the profile goes)
+    w = int(min(3 * sig, i, len(sm) - 1 - i))
+    top = float(np.nanpercentile(bi[inner], 95)) if inner.any() else float(np.max(bi))
+    if w < 1 or top <= 0:
+        return None, 0.0
+    rel = (sm[i + w] - sm[i - w]) / top
     return bool(rel > 0), float(abs(rel))
 
 
@@ -131,7 +135,9 @@ def read_photo(path, instrument: Instrument | None = None, calibration=None, ove
     except PhotoRejected as exc:
         return rejected(name, _sha_or_empty(path), str(exc))
     try:
-        result, evidence = _read_loaded(photo, name, inst, calibration)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN rows outside the field
+            result, evidence = _read_loaded(photo, name, inst, calibration)
     except PhotoRejected as exc:
         result, evidence = rejected(name, photo.sha256, str(exc)), None
     except (MemoryError, cv2.error, ValueError, np.linalg.LinAlgError) as exc:
@@ -140,8 +146,8 @@ def read_photo(path, instrument: Instrument | None = None, calibration=None, ove
         from critline.photo.overlay import write_overlay
         try:
             write_overlay(photo, result, evidence, overlay_dir, name)
-        except OSError:
-            pass
+        except (OSError, cv2.error, PhotoRejected):
+            pass  # evidence is best effort: the reading itself stands
     return result
 
 
@@ -168,7 +174,7 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
     axis = axis_angle(grey_w, wcx, wcy, wr)
     frame = make_frame(rgb, wcx, wcy, wr, axis.angle, rw)
     del rgb, grey_w
-    evidence = {"circle": circle, "axis": axis, "frame": frame}
+    evidence = {"circle": circle, "axis": axis, "frame": frame, "first": inst.first, "step": inst.step}
     figures: dict = {"field_radius_px": circle.r, "field_support": circle.support,
                      "field_in_frame": circle.inside_frame, "axis_coherence": axis.coherence,
                      "working_reduction": rw}
@@ -187,17 +193,22 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
         return _no_graduations(photo, name, str(exc), figures, flags, calibration), evidence
     exclude = int(max(0.35 * frame.radius, 3 * (col.v_hi - col.v_lo + 1)))
     prof = brightness_profile(frame, col.v_lo, col.v_hi, exclude, col.period)
-    values_down, step = _dominant_step(prof, col.period, frame.half, frame.radius)
-    if step < 0.03:
-        values_down = None
+    decided = {}
+
+    def direction(lo, hi):
+        down, step = _dominant_step(prof, col.period, frame.half, frame.radius, lo, hi)
+        decided["down"] = None if step < 0.03 else down
+        figures["direction_step"] = step
+        return decided["down"]
+
     try:
-        grads, frame = find_graduations(frame, inst, dark, col, values_down)
+        grads, frame = find_graduations(frame, inst, dark, col, direction)
     except GraduationsNotFound as exc:
         return _no_graduations(photo, name, str(exc), figures, flags, calibration), evidence
     evidence["frame"] = frame
     evidence["graduations"] = grads
     n = frame.grey.shape[0]
-    if values_down is False:
+    if decided.get("down") is False:
         prof = Profile((n - 1) - prof.rows[::-1], prof.brightness[::-1], prof.noise[::-1], prof.rgb[:, ::-1],
                        prof.columns, prof.tilt, prof.figures)
     figures.update(grads.figures)
