@@ -34,7 +34,7 @@ samples.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 from scipy.fft import irfft, next_fast_len, rfft, rfftfreq
@@ -82,6 +82,8 @@ class Window:
     prism_index: float
     grid_sq: np.ndarray  # grid ** 2
     grid_cos: np.ndarray  # sqrt(N**2 - grid**2), the prism side of the Fresnel equations
+    interp_index: np.ndarray  # grid cell of each sample (linear interpolation)
+    interp_frac: np.ndarray
 
     @property
     def tau_grid(self):
@@ -104,7 +106,7 @@ def make_window(values, brightness, weight, clipped, clip_level, lo, hi, sigma_l
     sel = (values >= lo) & (values <= hi)
     v = values[sel]
     spacing = float(np.median(np.diff(v))) if v.size > 1 else 1e-3
-    step = max(sigma_lo / 3.0, spacing / 6.0, 1e-7)
+    step = max(min(sigma_lo / 3.0, spacing), spacing / 6.0, 1e-7)
     pad = 4.0 * sigma_hi + 3 * step
     count = int(np.ceil((v[-1] - v[0] + 2 * pad) / step)) + 1
     if count > 8000:  # bounded time and memory for extreme inputs
@@ -113,24 +115,49 @@ def make_window(values, brightness, weight, clipped, clip_level, lo, hi, sigma_l
     grid = v[0] - pad + step * np.arange(count)
     fft_len = next_fast_len(count, real=True)
     grid_sq = grid * grid
+    index, frac = _interp_weights(grid, v)
     return Window(values=v, brightness=brightness[sel], weight=weight[sel], clipped=clipped[sel],
                   clip_level=clip_level, grid=grid, step=step, centre=0.5 * (v[0] + v[-1]),
                   half_span=max(0.5 * (v[-1] - v[0]), 1e-9), spacing=spacing,
                   freq=rfftfreq(fft_len, d=step), fft_len=fft_len, prism_index=float(prism_index),
-                  grid_sq=grid_sq, grid_cos=np.sqrt(np.maximum(prism_index**2 - grid_sq, 0.0)))
+                  grid_sq=grid_sq,
+                  # kept above zero so that the ratios stay 1 (not 0/0) beyond the prism index
+                  grid_cos=np.sqrt(np.maximum(prism_index**2 - grid_sq, 1e-18)),
+                  interp_index=index, interp_frac=frac)
 
 
-def _dark(window: Window, n, g):
-    """``1 - R(t; n, N) ** g`` on the grid: the same Fresnel equations as :func:`reflectance`."""
+def _interp_weights(grid, at):
+    """Cell index and fraction of each point of ``at`` on the uniform ``grid``."""
+    pos = np.clip((np.asarray(at, float) - grid[0]) / (grid[1] - grid[0]), 0.0, grid.size - 1.000001)
+    index = pos.astype(int)
+    return index, pos - index
+
+
+def _dark(window: Window, n, g, with_tone=False):
+    """``1 - R(t; n, N) ** g`` on the grid: the same Fresnel equations as :func:`reflectance`.
+
+    Zero from the onset up (total reflection), so only the grid below ``n`` is
+    computed.  With ``with_tone`` also returns its derivative with respect to
+    ``log g``, ``-g R**g log R``.
+    """
+    out = np.zeros(window.grid.size)
+    tone = np.zeros(window.grid.size) if with_tone else None
+    stop = int(np.searchsorted(window.grid, n))
+    if stop == 0:
+        return (out, tone) if with_tone else out
     big2 = window.prism_index**2
-    a = window.grid_cos
-    b = np.sqrt(np.maximum(n * n - window.grid_sq, 0.0))
+    a = window.grid_cos[:stop]
+    b = np.sqrt(np.maximum(n * n - window.grid_sq[:stop], 0.0))
     n2 = n * n
     rs = ((a - b) / (a + b)) ** 2
     rp = ((n2 * a - big2 * b) / (n2 * a + big2 * b)) ** 2
     r = 0.5 * (rs + rp)
-    # b == 0 on the bright side, where both ratios are exactly 1 already
-    return 1.0 - r**g if g != 1.0 else 1.0 - r
+    rg = r**g if g != 1.0 else r
+    out[:stop] = 1.0 - rg
+    if with_tone:
+        tone[:stop] = -g * rg * np.log(np.maximum(r, 1e-300))
+        return out, tone
+    return out
 
 
 def _blur(window: Window, f, sigma, shape_rows=0):
@@ -166,28 +193,32 @@ def design(window: Window, onsets, sigma, g, at=None):
     sharpening overshoot without a change of the onset, and without which such
     an edge would pass for two.
     """
-    t = window.grid
-    x_at = window.values if at is None else np.asarray(at, float)
+    if at is None:
+        x_at, index, frac = window.values, window.interp_index, window.interp_frac
+    else:
+        x_at = np.asarray(at, float)
+        index, frac = _interp_weights(window.grid, x_at)
     tau_at = (x_at - window.centre) / window.half_span
     count = len(onsets)
     # Work with the dark parts 1 - E_k, which vanish on the bright side: the padded
     # grid then wraps quietly, and tau * sum E_k = K tau - tau * sum(1 - E_k) where
     # the blur of the linear tau is tau itself.
-    rows = np.empty((count + 1, t.size))
+    rows = np.empty((count + 1, window.grid.size))
     for k, n in enumerate(onsets):
         rows[k] = _dark(window, n, g)
     rows[count] = window.tau_grid * rows[:count].sum(axis=0)
     blurred = _blur(window, rows, sigma, shape_rows=count)
-    cols = [np.ones_like(x_at), tau_at]
-    for k in range(count):
-        cols.append(1.0 - np.interp(x_at, t, blurred[k]))
-    cols.append(count * tau_at - np.interp(x_at, t, blurred[count]))
-    for k in range(count):
-        cols.append(-np.interp(x_at, t, blurred[count + 1 + k]))
-    return np.stack(cols, axis=1)
+    at_samples = blurred[:, index] * (1.0 - frac) + blurred[:, index + 1] * frac
+    basis = np.empty((x_at.size, n_linear(count)))
+    basis[:, 0] = 1.0
+    basis[:, 1] = tau_at
+    basis[:, 2 : 2 + count] = (1.0 - at_samples[:count]).T
+    basis[:, 2 + count] = count * tau_at - at_samples[count]
+    basis[:, 3 + count :] = -at_samples[count + 1 :].T
+    return basis
 
 
-def solve_linear(basis, window: Window):
+def solve_linear(basis, window: Window, return_weights=False):
     """Weighted linear least squares for the linear parameters.
 
     Clipped samples are censored: they count, at the clip level, only while the
@@ -205,7 +236,7 @@ def solve_linear(basis, window: Window):
                 break
             w = w_new
             coef = _weighted_solve(basis, y, w)
-    return coef
+    return (coef, w) if return_weights else coef
 
 
 def _weighted_solve(basis, y, w):
@@ -227,16 +258,113 @@ def unpack(theta, count):
 
 
 def residuals(theta, window: Window, count):
-    onsets, sigma, g = unpack(theta, count)
-    basis = design(window, onsets, sigma, g)
-    coef = solve_linear(basis, window)
-    model = basis @ coef
-    r = (window.brightness - model) * window.weight
-    if window.clipped.any():
-        # A clipped sample says only "at least the clip level": no penalty when the
-        # model is above it (censored residual).
-        r = np.where(window.clipped, np.maximum(window.clip_level - model, 0.0) * window.weight, r)
-    return r
+    """Projected residual (variable projection) for the non-linear parameters ``theta``."""
+    return _Problem(window, count).fun(theta)
+
+
+class _Problem:
+    """Residual and approximate Jacobian of the separable fit, sharing one FFT per step.
+
+    The Jacobian is Kaufman's approximation of the variable-projection Jacobian
+    (L. Kaufman, "A variable projection method for solving separable nonlinear
+    least squares problems", BIT 15, 1975), with analytic derivatives of the
+    blurred model: the Gaussian's width derivative is a filter of the same
+    spectrum, an onset shift is taken as a translation of its edge term, and the
+    tone exponent's derivative is one more blurred row.  It steers the search
+    only; the covariance is taken from central differences at the solution.
+    """
+
+    def __init__(self, window: Window, count: int):
+        self.window = window
+        self.count = count
+        self._key = None
+        self._ift = 2j * np.pi * window.freq
+
+    def _update(self, theta):
+        key = theta.tobytes()
+        if key == self._key:
+            return
+        win, count = self.window, self.count
+        onsets, sigma, g = unpack(theta, count)
+        rows = np.empty((count + 1, win.grid.size))
+        tones = np.empty((count, win.grid.size))
+        for k, n in enumerate(onsets):
+            rows[k], tones[k] = _dark(win, n, g, with_tone=True)
+        rows[count] = win.tau_grid * rows[:count].sum(axis=0)
+        spectrum = rfft(rows, n=win.fft_len, axis=-1)
+        omega2 = (2.0 * np.pi * sigma * win.freq) ** 2
+        transfer = np.exp(-0.5 * omega2)
+        blurred = irfft(np.concatenate([spectrum * transfer,
+                                        spectrum[:count] * (transfer * omega2 * omega2)]),
+                        n=win.fft_len, axis=-1)[:, : win.grid.size]
+        index, frac = win.interp_index, win.interp_frac
+        at = blurred[:, index] * (1.0 - frac) + blurred[:, index + 1] * frac
+        tau = win.tau
+        basis = np.empty((tau.size, n_linear(count)))
+        basis[:, 0] = 1.0
+        basis[:, 1] = tau
+        basis[:, 2 : 2 + count] = (1.0 - at[:count]).T
+        basis[:, 2 + count] = count * tau - at[count]
+        basis[:, 3 + count :] = -at[count + 1 :].T
+        coef, weight = solve_linear(basis, win, return_weights=True)
+        model = basis @ coef
+        r = (win.brightness - model) * win.weight
+        if win.clipped.any():
+            r = np.where(win.clipped, np.maximum(win.clip_level - model, 0.0) * win.weight, r)
+        self._key = key
+        self.r, self.basis, self.coef, self.weight = r, basis, coef, weight
+        self.spectrum, self.tones, self.omega2, self.transfer = spectrum, tones, omega2, transfer
+
+    def fun(self, theta):
+        self._update(theta)
+        return self.r
+
+    def jac(self, theta):
+        self._update(theta)
+        win, count = self.window, self.count
+        coef, w2, t = self.coef, self.omega2, self.transfer
+        amps, q, shape = coef[2 : 2 + count], coef[2 + count], coef[3 + count :]
+        spec = self.spectrum
+        derivs = []
+        # onsets (translation of each edge term)
+        for k in range(count):
+            derivs.append((amps[k] * t + shape[k] * t * w2 * w2) * self._ift * spec[k])
+        # log sigma: d/dlog(sigma) of exp(-w/2) is -w exp(-w/2); of exp(-w/2) w^2 it is
+        # (4 w^2 - w^3) exp(-w/2), with w = (2 pi sigma f)^2
+        d_sigma = (amps[:, None] * (w2 * t)) * spec[:count] \
+            - (shape[:, None] * ((4 * w2 * w2 - w2**3) * t)) * spec[:count]
+        derivs.append(d_sigma.sum(axis=0) + q * w2 * t * spec[count])
+        # log g
+        tone_a = amps @ self.tones + q * win.tau_grid * self.tones.sum(axis=0)
+        tone_s = shape @ self.tones
+        spec_tone = rfft(np.stack([tone_a, tone_s]), n=win.fft_len, axis=-1)
+        derivs.append(-(t * spec_tone[0] + t * w2 * w2 * spec_tone[1]))
+        dm_grid = irfft(np.stack(derivs), n=win.fft_len, axis=-1)[:, : win.grid.size]
+        index, frac = win.interp_index, win.interp_frac
+        dm = dm_grid[:, index] * (1.0 - frac) + dm_grid[:, index + 1] * frac  # (K + 2, m)
+        # cumulative onsets: theta_j moves every onset from j up
+        dm[:count] = np.cumsum(dm[:count][::-1], axis=0)[::-1]
+        v = (dm * self.weight).T  # d(weighted model)/d(theta), inactive clipped rows zero
+        a = self.basis * self.weight[:, None]
+        normal = a.T @ a
+        scale = np.sqrt(np.maximum(np.diag(normal), 1e-300))
+        normal = normal / np.outer(scale, scale) + 1e-12 * np.eye(len(scale))
+        try:
+            proj = np.linalg.solve(normal, (a.T @ v) / scale[:, None]) / scale[:, None]
+        except np.linalg.LinAlgError:
+            proj = np.linalg.lstsq(a, v, rcond=1e-10)[0]
+        return -(v - a @ proj)
+
+
+def _central_jacobian(problem: _Problem, theta, steps):
+    """Central-difference Jacobian of the projected residual (for the covariance)."""
+    cols = []
+    for j, h in enumerate(steps):
+        up, down = theta.copy(), theta.copy()
+        up[j] += h
+        down[j] -= h
+        cols.append((problem.fun(up) - problem.fun(down)) / (2 * h))
+    return np.stack(cols, axis=1)
 
 
 @dataclass(frozen=True)
@@ -245,14 +373,27 @@ class Fit:
 
     count: int
     theta: np.ndarray
-    coef: np.ndarray  # low, p, a_1..a_K, q
-    cov_theta: np.ndarray  # covariance of theta, scaled by the residual variance
+    coef: np.ndarray  # low, p, a_1..a_K, q, c_1..c_K
     chi2: float  # sum of squared normalised residuals
     used: int  # samples carrying information
     scale2: float  # residual variance factor applied to the covariance
     autocorr: float  # lag-1 autocorrelation of the residuals
     residual: np.ndarray
     success: bool
+    problem: _Problem = field(repr=False, compare=False)
+    _cache: dict = field(default_factory=dict, repr=False, compare=False)
+
+    @property
+    def cov_theta(self):
+        """Covariance of theta from a central-difference Jacobian, scaled by the residual variance.
+
+        Computed on first use only (most trial fits are never asked).
+        """
+        if "cov" not in self._cache:
+            steps = np.concatenate([np.full(self.count, 0.05 * self.sigma), [0.02, 0.02]])
+            jac = _central_jacobian(self.problem, self.theta, steps)
+            self._cache["cov"] = np.linalg.pinv(jac.T @ jac, rcond=1e-12) * self.scale2
+        return self._cache["cov"]
 
     @property
     def onsets(self):
@@ -303,14 +444,13 @@ class Fit:
 def fit(window: Window, count, theta0, lower, upper, *, max_nfev=60):
     """Separable non-linear least squares (``scipy.optimize.least_squares``, 'trf')."""
     theta0 = np.clip(np.asarray(theta0, float), lower + 1e-12, upper - 1e-12)
-    res = least_squares(residuals, theta0, bounds=(lower, upper),
-                        args=(window, count), x_scale="jac", method="trf",
-                        max_nfev=max_nfev, diff_step=1e-4, ftol=1e-7, xtol=1e-7)
+    problem = _Problem(window, count)
+    res = least_squares(problem.fun, theta0, jac=problem.jac, bounds=(lower, upper),
+                        x_scale="jac", method="trf", max_nfev=max_nfev, ftol=1e-7, xtol=1e-7)
     theta = res.x
-    onsets, sigma, g = unpack(theta, count)
-    basis = design(window, onsets, sigma, g)
-    coef = solve_linear(basis, window)
-    r = res.fun
+    problem._update(theta)
+    coef = problem.coef
+    r = problem.r.copy()
     used = int(np.count_nonzero(window.weight > 0) - np.count_nonzero((r == 0) & window.clipped))
     used = max(used, 1)
     params = count + 2 + n_linear(count)
@@ -323,7 +463,5 @@ def fit(window: Window, count, theta0, lower, upper, *, max_nfev=60):
         rho = float(np.dot(rc[1:], rc[:-1]) / denom) if denom > 0 else 0.0
     else:
         rho = 0.0
-    jac = res.jac
-    cov = np.linalg.pinv(jac.T @ jac, rcond=1e-12) * scale2
-    return Fit(count=count, theta=theta, coef=coef, cov_theta=cov, chi2=chi2, used=used,
-               scale2=scale2, autocorr=rho, residual=r, success=bool(res.status > 0))
+    return Fit(count=count, theta=theta, coef=coef, chi2=chi2, used=used, scale2=scale2,
+               autocorr=rho, residual=r, success=bool(res.status > 0), problem=problem)
