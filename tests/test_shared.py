@@ -80,3 +80,11 @@ def test_atomic_write_gives_ordinary_file_mode(tmp_path):
     umask = os.umask(0)
     os.umask(umask)
     assert target.stat().st_mode & 0o777 == 0o666 & ~umask
+
+
+def test_option_parse_error_is_one_line(capsys):
+    from critline.cli import main
+
+    assert main(["identify", "--ri"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith("critline: error:")

@@ -10,6 +10,7 @@ from __future__ import annotations
 import sys
 
 import typer
+from typer.exceptions import TyperException
 
 from critline import cautions
 from critline.errors import EXIT_USAGE, CritlineError
@@ -49,10 +50,15 @@ from critline.cli import synth as _synth  # noqa: E402,F401
 
 
 def main(argv: list[str] | None = None) -> int:
-    """Entry point of the console script; returns the exit code."""
+    """Entry point of the console script; returns the exit code.
+
+    Usage errors from option parsing are printed as one line (exit 2), like every
+    :class:`~critline.errors.CritlineError`; tracebacks only with ``--debug``.
+    """
+    command = typer.main.get_command(app)
     try:
-        app(args=argv, prog_name="critline")
-    except SystemExit as exc:  # typer/click exit: usage errors (2), --help (0), commands' own codes
+        result = command.main(args=argv, prog_name="critline", standalone_mode=False)
+    except SystemExit as exc:  # a command that exits with its own code
         code = exc.code
         return code if isinstance(code, int) else (0 if code is None else EXIT_USAGE)
     except CritlineError as exc:
@@ -60,6 +66,12 @@ def main(argv: list[str] | None = None) -> int:
             raise
         print(f"critline: error: {exc}", file=sys.stderr)
         return exc.exit_code
+    except TyperException as exc:  # option parsing (click) errors and aborts
+        message = exc.format_message() if hasattr(exc, "format_message") else str(exc)
+        if message:  # an empty message: help was shown for a bare command
+            print(f"critline: error: {message} (see --help)", file=sys.stderr)
+        code = getattr(exc, "exit_code", EXIT_USAGE)
+        return 130 if type(exc).__name__ == "Abort" else (code if code else EXIT_USAGE)
     except KeyboardInterrupt:
         print("critline: interrupted", file=sys.stderr)
         return 130
@@ -68,7 +80,7 @@ def main(argv: list[str] | None = None) -> int:
             raise
         print(f"critline: internal error: {type(exc).__name__}: {exc} (rerun with --debug)", file=sys.stderr)
         return 1
-    return 0
+    return result if isinstance(result, int) else 0
 
 
 def run() -> None:
