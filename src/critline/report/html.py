@@ -76,8 +76,8 @@ vertical-align:middle;border-radius:4px;overflow:hidden}
 ul.tests,ul.notes{margin:4px 0;padding-left:18px}
 .notes li{color:var(--muted)}
 .thumbs{display:flex;flex-wrap:wrap;gap:10px}
-figure{margin:0;width:184px}
-figure img{width:184px;height:138px;object-fit:contain;display:block;border:1px solid var(--rule);
+figure{margin:0;width:232px}
+figure img{width:232px;height:174px;object-fit:contain;display:block;border:1px solid var(--rule);
 background:#15130f}
 figcaption{font-size:12px;color:var(--muted);overflow-wrap:anywhere}
 .profiles{display:flex;flex-wrap:wrap;gap:8px}
@@ -215,7 +215,9 @@ def _facts(stone) -> str:
 def _candidates(stone) -> str:
     ident = stone.identification
     if ident is None or not tuple(ident.candidates):
-        return '<p class="pm">No candidates.</p>'
+        if ident is None:
+            return '<p class="pm">No identification (see the notes above).</p>'
+        return '<p class="pm">No material in the property table fits these readings.</p>'
     items = []
     groups = tuple(getattr(ident, "groups", ()) or ())
     lead_group = set(groups[0]) if groups and len(groups[0]) > 1 else set()
