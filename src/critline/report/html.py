@@ -214,10 +214,8 @@ def _facts(stone) -> str:
 
 def _candidates(stone) -> str:
     ident = stone.identification
-    if ident is None or not tuple(ident.candidates):
-        if ident is None:
-            return '<p class="pm">No identification (see the notes above).</p>'
-        return '<p class="pm">No material in the property table fits these readings.</p>'
+    if ident is None:
+        return '<p class="pm">No identification (see the notes above).</p>'
     items = []
     groups = tuple(getattr(ident, "groups", ()) or ())
     lead_group = set(groups[0]) if groups and len(groups[0]) > 1 else set()
@@ -235,7 +233,8 @@ def _candidates(stone) -> str:
             + f'<br><span class="meter"><span style="width:{score * 100:.0f}%"></span></span>'
             f'<span class="num">{score:.2f}</span>'
             + (f'<ul class="why">{why}</ul>' if why else "") + "</li>")
-    out = '<ol class="cands">' + "".join(items) + "</ol>"
+    out = ('<ol class="cands">' + "".join(items) + "</ol>" if items else
+           '<p class="pm">No material in the property table fits these readings.</p>')
     ident_notes = tuple(getattr(ident, "notes", ()) or ())
     if ident_notes:
         out += '<ul class="notes">' + "".join(f"<li>{_e(t)}</li>" for t in ident_notes) + "</ul>"
