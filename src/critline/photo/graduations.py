@@ -221,33 +221,6 @@ def _lengths(dark: np.ndarray, rows: np.ndarray, col: GraduationColumn, max_len:
     return (col.v_hi - col.v_lo + 1) + run_r + run_l, run_r, run_l
 
 
-def _label_darkness(dark, rows, col, run_r, run_l, period, radius, inside):
-    """Darkness beyond the tips of the longest graduations, beside each line: printed values sit
-    there beside the long graduations (when the scale is labelled).  Robust z-scores per line."""
-    n = dark.shape[1]
-    long_r = float(np.percentile(run_r, 95)) if len(run_r) else 0.0
-    long_l = float(np.percentile(run_l, 95)) if len(run_l) else 0.0
-    gap = max(2, int(0.02 * radius))
-    width = max(6, int(0.25 * radius))
-    if long_r >= long_l:
-        c0 = col.v_hi + 1 + int(long_r) + gap
-        cols = slice(min(n, c0), min(n, c0 + width))
-    else:
-        c1 = col.v_lo - int(long_l) - gap
-        cols = slice(max(0, c1 - width), max(0, c1))
-    if cols.stop - cols.start < 3:
-        return np.zeros(len(rows))
-    h = max(1, int(round(1.2 * period)))
-    zone = np.where(inside[:, cols], dark[:, cols], 0.0).mean(axis=1)
-    csum = np.concatenate([[0.0], np.cumsum(zone)])
-    r = np.round(rows).astype(int)
-    lo, hi = np.clip(r - h, 0, len(zone)), np.clip(r + h + 1, 0, len(zone))
-    val = (csum[hi] - csum[lo]) / np.maximum(hi - lo, 1)
-    med = float(np.median(val))
-    mad = 1.4826 * float(np.median(np.abs(val - med))) + 1e-6
-    return np.clip((val - med) / mad, -3, 10)
-
-
 def _assign(pos: np.ndarray, period: float):
     """Consecutive integer indices from the spacing (first pass)."""
     k = np.zeros(len(pos), int)
@@ -370,8 +343,8 @@ def find_graduations(frame: FieldFrame, instrument: Instrument, dark: np.ndarray
         pos, k, prom = pos[good], k[good], prom[good]
         coef, cov, _ = _fit(k, pos, deg)
     max_len = int(max(4 * (col.v_hi - col.v_lo + 1), 0.1 * frame.radius))
-    lengths, run_r, run_l = _lengths(dark, pos, col, max_len)
-    labels = _label_darkness(dark, pos, col, run_r, run_l, col.period, frame.radius, frame.inside)
+    lengths, _, _ = _lengths(dark, pos, col, max_len)
+    labels = np.zeros(len(pos))  # printed values are not read (no character recognition)
     flags = []
     if callable(values_down):  # decided from the brightness within the scale's extent
         values_down = values_down(float(pos.min() - 2 * col.period), float(pos.max() + 2 * col.period))
@@ -511,7 +484,6 @@ def _identify(k, pos, lengths, labels, coef, profile, noise, frame, col, instrum
     if bright_lines.sum() < 12:
         bright_lines = np.ones(len(k), bool)
     med_all = max(float(np.median(lengths[bright_lines])), 1.0)
-    has_labels = instrument.labelled_every and float(np.percentile(labels[bright_lines], 95)) > 4.0
     scores, pattern, templates = {}, {}, {}
     for c in range(-int(k.max()) - 2, count + 2 - int(k.min())):
         absm = m + c
@@ -520,11 +492,6 @@ def _identify(k, pos, lengths, labels, coef, profile, noise, frame, col, instrum
         # the pattern over all lines found (it is periodic; the range is the template's business)
         absolute = k[bright_lines] + c + base
         corr = _pattern_score(lengths[bright_lines], absolute, le, me, med_all)
-        if has_labels:
-            lab = absolute % instrument.labelled_every == 0
-            if lab.any() and (~lab).any():
-                corr += 0.1 * float(np.clip(np.median(labels[bright_lines][lab])
-                                            - np.median(labels[bright_lines][~lab]), -5, 5))
         pattern[c] = corr
         templates[c] = tmpl
         # weak prior: an eyepiece centres its scale in the field stop (a few tenths of a radius)
