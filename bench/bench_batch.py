@@ -12,8 +12,11 @@ Usage::
 
     python bench/bench_batch.py [--photos 24] [--megapixels 1.0] [--workers 2] [--keep DIR] [--no-overlays]
 
-The machine's load average is printed too: other work on the same cores lowers
-the speed-up, and the figure is only meaningful on otherwise idle cores.
+The machine's load average is printed too, and the CPU seconds the photos took in
+each mode with the average number of cores kept busy: other work on the same
+cores lowers the speed-up, and the wall-clock figure is only meaningful on
+otherwise idle cores (the busy-cores figures show how much of the machine each
+mode actually got).
 """
 
 from __future__ import annotations
@@ -57,12 +60,32 @@ def render_parcel(folder: Path, n_photos: int, megapixels: float) -> int:
     return count
 
 
+CPU_LOG = "CRITLINE_BENCH_CPU_LOG"
+
+
+def cpu_timed_reader(path, instrument=None, calibration=None, overlay_dir=None):
+    """The photo reader, logging the CPU seconds each photo took in whichever process read it."""
+    from critline.batch.work import default_reader
+
+    t0 = time.process_time()
+    reading = default_reader()(path, instrument, calibration, overlay_dir)
+    with open(os.environ[CPU_LOG], "a") as fh:
+        fh.write(f"{time.process_time() - t0}\n")
+    return reading
+
+
 def timed_batch(folder: Path, out: Path, workers: int, overlays: bool = True):
+    """Wall time, result, and the CPU seconds the photos took (summed over processes)."""
     from critline.batch import run_batch
 
+    log = Path(os.environ[CPU_LOG])
+    log.write_text("")
     t0 = time.perf_counter()
-    result = run_batch(folder, out_dir=out, workers=workers, fresh=True, overlays=overlays)
-    return time.perf_counter() - t0, result
+    result = run_batch(folder, out_dir=out, workers=workers, fresh=True, overlays=overlays,
+                       reader=cpu_timed_reader)
+    wall = time.perf_counter() - t0
+    cpu = sum(float(x) for x in log.read_text().split())
+    return wall, result, cpu
 
 
 def signature(result):
@@ -82,6 +105,11 @@ def main(argv=None) -> int:
 
     tmp = Path(tempfile.mkdtemp(prefix="critline-bench-batch-"))
     folder = args.keep or (tmp / "parcel")
+    os.environ[CPU_LOG] = str(tmp / "cpu.log")  # set before the fork server starts
+    from critline.batch.work import default_reader, prepare_workers
+
+    # the fork server preloads what the real reader needs (the timing wrapper lives in __main__)
+    prepare_workers(default_reader())
     try:
         t0 = time.perf_counter()
         n = render_parcel(folder, args.photos, args.megapixels)
@@ -94,20 +122,22 @@ def main(argv=None) -> int:
         few = tmp / "few"
         stone = sorted(p for p in folder.iterdir() if p.is_dir())[0]
         shutil.copytree(stone, few / stone.name)
-        w1, _ = timed_batch(few, tmp / "warm1", 1, overlays)
-        w2, _ = timed_batch(few, tmp / "warm2", args.workers, overlays)
+        w1, _, _ = timed_batch(few, tmp / "warm1", 1, overlays)
+        w2, _, _ = timed_batch(few, tmp / "warm2", args.workers, overlays)
         print(f"first use (imports, fork server start) on {sum(1 for _ in few.rglob('*.jpg'))} photos: "
               f"one process {w1:.2f} s, {args.workers} workers {w2:.2f} s (paid once per command)")
-        t1, r1 = timed_batch(folder, tmp / "one", 1, overlays)
-        t2, r2 = timed_batch(folder, tmp / "many", args.workers, overlays)
+        t1, r1, c1 = timed_batch(folder, tmp / "one", 1, overlays)
+        t2, r2, c2 = timed_batch(folder, tmp / "many", args.workers, overlays)
         same = signature(r1) == signature(r2)
         statuses = {}
         for _, status, _ in signature(r1):
             statuses[status] = statuses.get(status, 0) + 1
         ratio = t1 / t2
         print(f"photo results: {statuses} (marked-up photos: {'yes' if overlays else 'no'})")
-        print(f"one process:      {t1:7.2f} s  ({n / t1:5.2f} photos/s)")
-        print(f"{args.workers} worker processes: {t2:7.2f} s  ({n / t2:5.2f} photos/s)")
+        print(f"one process:      {t1:7.2f} s  ({n / t1:5.2f} photos/s); reading CPU {c1:6.2f} s "
+              f"({c1 / n:.2f} s/photo), {c1 / t1:.2f} cores busy on average")
+        print(f"{args.workers} worker processes: {t2:7.2f} s  ({n / t2:5.2f} photos/s); reading CPU "
+              f"{c2:6.2f} s ({c2 / n:.2f} s/photo), {c2 / t2:.2f} cores busy on average")
         print(f"speed-up {args.workers} workers / one process: {ratio:.2f}x "
               f"(target >= 1.7x on 2 cores: {'met' if ratio >= 1.7 else 'NOT met'})")
         print(f"same readings in both runs: {same}")

@@ -11,9 +11,11 @@ compares against.  A reader that raises, or a worker that dies, turns into a
 from __future__ import annotations
 
 import contextlib
+import importlib
 import math
 import multiprocessing
 import os
+import pkgutil
 import signal
 import sys
 import warnings
@@ -134,16 +136,35 @@ def chunk_size(n_tasks: int, workers: int) -> int:
     return max(1, min(8, math.ceil(n_tasks / max(1, workers * 4))))
 
 
+#: libraries a reader may import only when first used; imported once in the fork server
+LAZY_LIBRARIES = ("numpy", "cv2", "scipy.ndimage", "scipy.optimize", "scipy.signal", "scipy.stats",
+                  "skimage.measure", "skimage.feature", "skimage.filters", "PIL.Image", "pillow_heif")
+
+
+def preload_modules(reader: Reader) -> list[str]:
+    """What the fork server imports before forking workers: the reader's module, its sibling
+    modules (imported lazily inside functions) and the usual numerical libraries, so that a
+    new worker's first photo costs no import time."""
+    names = ["critline.batch.work", *LAZY_LIBRARIES]
+    module = getattr(reader, "__module__", None)
+    if module and module != "__main__":
+        names.append(module)
+        package = module.rpartition(".")[0]
+        if package:
+            try:
+                pkg = importlib.import_module(package)
+                names += [f"{package}.{m.name}" for m in pkgutil.iter_modules(getattr(pkg, "__path__", []))]
+            except ImportError:
+                pass
+    return list(dict.fromkeys(names))
+
+
 def _context(reader: Reader):
     """``forkserver`` with the reader's module preloaded: workers start without importing it again."""
     methods = multiprocessing.get_all_start_methods()
     if "forkserver" in methods:
         ctx = multiprocessing.get_context("forkserver")
-        preload = ["critline.batch.work", "numpy", "cv2"]
-        module = getattr(reader, "__module__", None)
-        if module and module != "__main__":
-            preload.append(module)
-        ctx.set_forkserver_preload(preload)
+        ctx.set_forkserver_preload(preload_modules(reader))
         return ctx
     return multiprocessing.get_context("spawn")
 
