@@ -13,7 +13,7 @@ from critline.cli import app
 from critline.errors import EXIT_REJECTED, CritlineError, UsageError
 
 _OUT_HELP = ("Folder for the reports, the result cache and the marked-up photos "
-             "[default: ./<folder name>-critline].")
+             "(default: ./<folder name>-critline).")
 
 
 def default_out(source: Path) -> Path:
@@ -125,12 +125,12 @@ def batch(
     fresh: bool = typer.Option(False, "--fresh", help="Read every photo again, ignoring results cached by earlier runs."),
     overwrite: bool = typer.Option(False, "--overwrite", help="Replace report.json/.csv/.html. Without it an "
                                    "earlier report is kept and the new one is written as report-2.*, report-3.*, ..."),
-    workers: int | None = typer.Option(None, "--workers", min=1, help="Reading processes [default: all cores]."),
+    workers: int | None = typer.Option(None, "--workers", min=1, help="Reading processes (default: all cores)."),
     no_overlays: bool = typer.Option(False, "--no-overlays", help="Skip the marked-up photos (quicker; the "
                                      "report then shows the photos as taken)."),
     name_pattern: str | None = typer.Option(None, "--name-pattern", help="Regular expression with named groups "
-                                            "'rotation' and 'polariser' matched in file names [default matches "
-                                            "r030_pol0.jpg, r030_pol90.jpg, r030_none.jpg]."),
+                                            "'rotation' and 'polariser' matched in file names (the default matches "
+                                            "r030_pol0.jpg, r030_pol90.jpg, r030_none.jpg)."),
 ) -> None:
     """Read every photo of a folder of stones, analyse and identify each stone, and write reports.
 
@@ -210,7 +210,7 @@ def watch(
     out: Path | None = typer.Option(None, "--out", help=_OUT_HELP),
     interval: float = typer.Option(2.0, "--interval", min=0.05, help="Seconds between looks at the folder."),
     max_idle: float | None = typer.Option(None, "--max-idle", min=0.0, help="Stop after this many seconds "
-                                          "without a new photo [default: run until Ctrl-C]."),
+                                          "without a new photo (default: run until Ctrl-C)."),
     once: bool = typer.Option(False, "--once", help="Read what is there (once its size is stable) and stop."),
     no_overlays: bool = typer.Option(False, "--no-overlays", help="Skip the marked-up photos (quicker)."),
     name_pattern: str | None = typer.Option(None, "--name-pattern", help="As for `critline batch`."),
