@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 STATUSES = ("ok", "over_limit", "no_edge", "rejected")
 LIGHTS = ("monochromatic", "white", "unknown")
 MODES = ("graduations", "field_frame")
-EDGE_KINDS = ("stone", "liquid")
+EDGE_KINDS = ("stone", "liquid", "spot")  # spot: a spot (distance) reading, critline.photo.spot
 
 
 def _r4(x):

@@ -190,22 +190,21 @@ def _dust(scene: Scene, rng: np.random.Generator, img: np.ndarray, ppu: float, c
     return specks
 
 
-def eyepiece_view(scene: Scene, ppu: float, rng: np.random.Generator | None = None):
-    """Linear-light canonical raster of the eyepiece view.
-
-    Returns
-    -------
-    img : ndarray, float32, shape ``(channels, size, size)``
-        Columns along ``u``, rows along ``v``; the field stop's surround is 0.
-    c0 : float
-        Pixel index of ``u = v = 0``.
-    extras : dict
-        Dust specks drawn (truth).
-    """
-    smap = scale_map(scene)
+def canvas(ppu: float) -> tuple[int, float, np.ndarray]:
+    """Size, centre pixel and ``u`` (field radii) of each column of the canonical raster."""
     size = 2 * int(math.ceil(_MARGIN * ppu)) + 1
     c0 = (size - 1) / 2.0
-    # 1-D profile, oversampled across each pixel and box-averaged
+    u = ((np.arange(size) - c0) / ppu).astype(np.float32)
+    return size, c0, u
+
+
+def axis_profiles(scene: Scene, smap: ScaleMap, size: int, ppu: float, c0: float,
+                  illuminate: bool = True) -> np.ndarray:
+    """Linear brightness per channel along ``u`` for each raster column, shape ``(channels, size)``.
+
+    The physics profile (oversampled, box-averaged), the instrument's blur, the
+    stray light and, with ``illuminate``, the uneven lamp.
+    """
     sub = (np.arange(size * _OVERSAMPLE) + 0.5) / _OVERSAMPLE - 0.5
     u_sub = (sub - c0) / ppu
     profiles = channel_profiles(scene, smap.value(u_sub))
@@ -218,9 +217,19 @@ def eyepiece_view(scene: Scene, ppu: float, rng: np.random.Generator | None = No
         inside = np.abs(u) <= 1.0
         profiles = (1.0 - scene.stray_light) * profiles + scene.stray_light * profiles[:, inside].mean(
             axis=1, keepdims=True)
-    illumination = 1.0 + 0.5 * scene.illumination_slope * u + scene.illumination_curve * (u * u - 1 / 3)
-    profiles = profiles * illumination[None, :]
-    # field stop, rim falloff and off-axis crescent (radially symmetric terms, 2-D)
+    if illuminate:
+        profiles = profiles * illumination(scene, u)[None, :]
+    return profiles
+
+
+def illumination(scene: Scene, u: np.ndarray) -> np.ndarray:
+    """Relative lamp brightness along ``u`` (slope and curvature of an uneven lamp)."""
+    return 1.0 + 0.5 * scene.illumination_slope * u + scene.illumination_curve * (u * u - 1 / 3)
+
+
+def field_mask(scene: Scene, smap: ScaleMap, u: np.ndarray, ppu: float, c0: float):
+    """Field stop (``stop``) and its transmission with rim falloff, crescent and printed reticle (``field``)."""
+    size = len(u)
     rho2 = (u * u)[None, :] + (u * u)[:, None]
     soft = max(scene.field_softness * ppu, 0.7) / ppu
     stop = cv2.sqrt(rho2)
@@ -240,20 +249,53 @@ def eyepiece_view(scene: Scene, ppu: float, rng: np.random.Generator | None = No
         del lit
     ink = _ink(scene, smap, size, ppu, c0)
     field *= np.float32(1.0) - ink
-    del ink
-    img = np.empty((profiles.shape[0], size, size), np.float32)
-    for ch in range(profiles.shape[0]):
-        cv2.multiply(field, np.broadcast_to(profiles[ch].astype(np.float32)[None, :], field.shape).copy(),
-                     dst=img[ch])
+    return stop, field
+
+
+def finish_view(scene: Scene, img: np.ndarray, stop: np.ndarray, rng, ppu: float, c0: float) -> dict:
+    """Dust specks, then the dim housing around the field stop; returns the extras (truth)."""
     extras = {"dust": _dust(scene, rng, img, ppu, c0) if (scene.dust and rng is not None) else []}
     stop *= np.float32(-scene.surround)
     stop += np.float32(scene.surround)
     img += stop[None]
+    return extras
+
+
+def eyepiece_view(scene: Scene, ppu: float, rng: np.random.Generator | None = None):
+    """Linear-light canonical raster of the eyepiece view (flat facet: a shadow edge across the field).
+
+    Returns
+    -------
+    img : ndarray, float32, shape ``(channels, size, size)``
+        Columns along ``u``, rows along ``v``; the field stop's surround is 0.
+    c0 : float
+        Pixel index of ``u = v = 0``.
+    extras : dict
+        Dust specks drawn (truth).
+    """
+    smap = scale_map(scene)
+    size, c0, u = canvas(ppu)
+    profiles = axis_profiles(scene, smap, size, ppu, c0)
+    # field stop, rim falloff and off-axis crescent (radially symmetric terms, 2-D)
+    stop, field = field_mask(scene, smap, u, ppu, c0)
+    img = np.empty((profiles.shape[0], size, size), np.float32)
+    for ch in range(profiles.shape[0]):
+        cv2.multiply(field, np.broadcast_to(profiles[ch].astype(np.float32)[None, :], field.shape).copy(),
+                     dst=img[ch])
+    extras = finish_view(scene, img, stop, rng, ppu, c0)
     return img, c0, extras
 
 
-#: Canonical-raster renderer for each ``Scene.view``.
+#: Canonical-raster renderer for each ``Scene.view`` ('spot' is registered by critline.synth.spot).
 VIEW_RENDERERS = {"facet": eyepiece_view}
+#: Per-view rewrite of the ground truth ``(scene, truth) -> truth`` (the facet view needs none).
+TRUTH_HOOKS: dict = {}
+
+
+def _renderer(view: str):
+    if view not in VIEW_RENDERERS:
+        import critline.synth.spot  # noqa: F401  (registers the spot view)
+    return VIEW_RENDERERS[view]
 
 
 # --------------------------------------------------------------------------- the phone
@@ -436,9 +478,9 @@ def render(scene: Scene, seed: int) -> tuple[np.ndarray, dict]:
     to_frame = eyepiece_to_frame(scene)
     # canonical pixel size: about one frame pixel, so no detail is lost or invented
     ppu = scene.field_radius_px
-    # one renderer per kind of view; the spot (distance) view of a droplet on a curved stone
-    # will be a second function with the same signature, registered in VIEW_RENDERERS
-    view, c0, extras = VIEW_RENDERERS[scene.view](scene, ppu, rng)
+    # one renderer per kind of view (VIEW_RENDERERS): the flat facet's shadow edge, or the
+    # spot (distance) view of a droplet on a curved stone (critline.synth.spot)
+    view, c0, extras = _renderer(scene.view)(scene, ppu, rng)
     canon_to_uv = np.array([[1 / ppu, 0, -c0 / ppu], [0, 1 / ppu, -c0 / ppu], [0, 0, 1.0]])
     h_total = to_frame @ canon_to_uv
     size = view.shape[-1]
@@ -466,6 +508,8 @@ def ground_truth(scene: Scene, extras: dict | None = None) -> dict:
     Keys
     ----
     schema : ``"critline.synth-truth/1"``
+    view : ``facet`` or ``spot``; a spot view's truth has a ``spot`` entry and its own
+        edges and status (:func:`critline.synth.spot.spot_truth`).
     edges : list of dict, sorted by ``ri``
         Edges in the field: ``ri`` (true index at 589.3 nm), ``kind`` (``stone`` or
         ``liquid``), ``scale_position`` (graduation units from the first graduation of
@@ -549,8 +593,9 @@ def ground_truth(scene: Scene, extras: dict | None = None) -> dict:
     axis_dir = project(h, np.array([0.0, 0.01]), np.array([scene.axis_v] * 2))
     d = axis_dir[1] - axis_dir[0]
     g = glass(scene.prism_glass)
-    return {
+    truth = {
         "schema": TRUTH_SCHEMA,
+        "view": scene.view,
         "edges": edges,
         "status": status,
         "field": {"cx": round(cx, 3), "cy": round(cy, 3), "r": round(math.sqrt(abs(area) / math.pi), 3),
@@ -567,3 +612,7 @@ def ground_truth(scene: Scene, extras: dict | None = None) -> dict:
         "size": {"width": scene.width, "height": scene.height},
         "params": scene.to_dict(),
     }
+    if scene.view != "facet":
+        _renderer(scene.view)
+    hook = TRUTH_HOOKS.get(scene.view)
+    return hook(scene, truth) if hook else truth

@@ -10,7 +10,9 @@ import numpy as np
 
 from critline.instrument import DEFAULT, Instrument
 
-VIEWS = ("facet",)  # 'spot' (distance reading of a droplet on a curved stone) comes later
+#: 'facet': shadow edge of a flat facet across the field; 'spot': the distance (spot) view of a
+#: droplet under a curved stone (:mod:`critline.synth.spot`)
+VIEWS = ("facet", "spot")
 POLARISERS = ("both", "low", "high")
 LIGHTS = ("sodium", "white")
 FORMATS = ("jpeg", "png", "tiff", "heic")
@@ -37,6 +39,14 @@ class Scene:
     liquid_abbe: float = 19.0                 # dense contact liquids are very dispersive (from memory)
     liquid_line: float = 0.05                 # fraction of the table wetted away from the stone
     light: str = "sodium"                     # 'sodium' (589.3 nm) or 'white'
+    # --- the spot view only (view='spot', see critline.synth.spot) -------------------
+    spot_value: float = 1.66                  # true scale value at the spot's centre (set by the head position)
+    spot_length: float = 0.06                 # extent of the spot along the scale, in scale values
+    spot_aspect: float = 0.75                 # width across the scale / length along it
+    spot_v: float = -0.05                     # across-axis position of the spot's centre (field radii)
+    spot_surround: float = 0.3                # brightness of the rest of the field, relative to the bright part
+    spot_rim: float = 0.25                    # darkening at the droplet's rim, 0..1
+    spot_softness: float = 0.006              # width of the spot's outline (field radii)
     # --- the instrument --------------------------------------------------------
     instrument: Instrument = field(default_factory=lambda: DEFAULT)
     prism_glass: str = "N-LASF31A"
@@ -93,6 +103,9 @@ class Scene:
     def __post_init__(self):
         if self.view not in VIEWS:
             raise ValueError(f"view {self.view!r} is not supported yet (have {VIEWS})")
+        if self.view == "spot" and not (self.spot_length > 0 and 0 < self.spot_aspect <= 2
+                                        and 0 <= self.spot_surround < 1 and 0 <= self.spot_rim < 1):
+            raise ValueError("spot view: spot_length > 0, 0 < spot_aspect <= 2, spot_surround and spot_rim in [0, 1)")
         if self.polariser not in POLARISERS:
             raise ValueError(f"polariser must be one of {POLARISERS}")
         if self.light not in LIGHTS:

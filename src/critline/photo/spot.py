@@ -1,0 +1,575 @@
+"""Spot (distance) readings of curved stones from photos.
+
+On a cabochon the stone touches the prism through a tiny droplet; with the eye
+well behind the eyepiece the droplet's image shows as a small oval on the
+scale, dim where its scale values lie below the stone's index and bright
+above (domain.md, "Practice").  The reading is where the spot turns from dark
+to light, half dark and half light: two decimals, about +-0.01 (common
+practice, no source).
+
+Detection is automatic (no option needed): :func:`looks_like_spot_view`
+decides from the field whether the photo shows a compact bright oval on an
+otherwise dim, even field (a spot view) rather than a shadow edge across
+the whole field (a flat facet).  It is conservative both ways: a field with a
+large bright region, a bright region reaching the field's rim, a weak
+contrast, or uneven brightness outside the oval is *not* a spot view.
+
+Method
+------
+1. In the field frame of :mod:`critline.photo.frame` (axis along the rows)
+   the printed reticle is removed by a grey closing along the axis
+   (thin dark lines across the axis vanish, broad steps stay), the image is
+   taken to linear light and the field's background level is its median.
+2. The spot is the largest bright connected region (above half-way from the
+   background to the brightest level); it must be compact, inside the field,
+   small, and the rest of the field even.
+3. The spot's dim part (its scale values below the index) lies on one side
+   along the axis: that side is the low-value side, which orients the scale
+   for :func:`critline.photo.graduations.find_graduations`.
+4. Along the axis through the spot the brightness rises from the dim part to
+   the bright part at the split; the split's value is fitted with the
+   table's Fresnel reflectance (Fresnel equations, :mod:`critline.optics`)
+   blurred by a Gaussian, by least squares over a grid of indices and blur
+   widths, on the value axis given by the graduations.  That is where a spot
+   centred there would be half dark, half light.
+5. A series of photos of one stone (the head moving):
+   :func:`read_spot_series` interpolates the spot-centre position at which
+   the dark fraction is one half.
+
+Hook for :func:`critline.photo.read_photo` (after loading and field finding)::
+
+    from critline.photo.spot import read_spot_view
+
+    photo = load_photo(path)
+    fr = find_field(coarse, rc)               # FieldResult with a circle
+    spot = read_spot_view(photo, fr.circle, inst, calibration, name)
+    if spot is not None:                      # a spot view: its reading
+        return spot
+    ...                                       # else the flat-facet reading
+
+``read_spot_view(photo, circle, instrument=None, calibration=None, name=None,
+force=False) -> PhotoReading | None`` returns None when the photo is not a
+spot view (``force=True``: read it as one anyway, or reject it with the
+reason; for a ``--spot`` option).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+
+import cv2
+import numpy as np
+from scipy.ndimage import gaussian_filter1d, label
+
+from critline.instrument import DEFAULT, Instrument
+from critline.optics import unpolarised_reflectance
+from critline.photo.frame import FieldFrame, axis_angle, make_frame
+from critline.photo.graduations import (
+    GraduationsNotFound,
+    find_column,
+    find_graduations,
+    normalised,
+)
+from critline.photo.load import LoadedPhoto, PhotoRejected, decode, srgb_to_linear
+from critline.readings import Edge, PhotoReading, Quality, rejected
+
+#: Precision of a spot reading, +- (common practice, no source); reported as the uncertainty.
+SPOT_PRECISION = 0.01
+#: Field diameter (pixels) wanted in the working image.
+WORK_DIAMETER = 900
+#: Prism index assumed for the shape of the Fresnel rise (dense glass, about 1.86-1.89; from memory).
+PRISM_INDEX = 1.88
+#: Share of the spot's length the split must lie inside for a single-photo reading.
+SPLIT_MARGIN = 0.08
+#: Flag carried by every spot reading.
+FLAG = "spot_reading"
+
+
+@dataclass(frozen=True)
+class SpotBlob:
+    """The spot found in a field frame (rows along the axis, frame pixels).
+
+    ``row_lo, row_hi``: extent of its bright part along the axis; ``col``:
+    its centre column; ``half_width``: half its width across the axis;
+    ``dim_side``: -1 if the dim part lies toward lower rows, +1 toward higher
+    rows, 0 if no dim part is seen (wholly bright spot); ``contrast``: bright
+    level / background (linear light); ``figures``: named measurements.
+    """
+
+    row_lo: float
+    row_hi: float
+    col: float
+    half_width: float
+    dim_side: int
+    contrast: float
+    background: float
+    bright: float
+    oval: tuple[float, float]
+    figures: dict = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class SpotDecision:
+    """Whether a field frame is a spot view, the spot if so, and the reason either way."""
+
+    is_spot: bool
+    reason: str
+    blob: SpotBlob | None = None
+    figures: dict = field(default_factory=dict)
+
+
+def _clean_linear(frame: FieldFrame) -> np.ndarray:
+    """Linear-light luma with the thin reticle lines removed (grey closing along the axis)."""
+    r = frame.radius
+    k = int(max(3, round(0.035 * r))) | 1
+    closed = cv2.morphologyEx(frame.grey, cv2.MORPH_CLOSE, cv2.getStructuringElement(cv2.MORPH_RECT, (1, k)))
+    closed = cv2.GaussianBlur(closed, (0, 0), max(1.0, 0.006 * r))
+    return srgb_to_linear(closed)
+
+
+def looks_like_spot_view(frame: FieldFrame) -> SpotDecision:
+    """Decide whether a field frame shows a spot view (see the module notes).
+
+    Returns
+    -------
+    SpotDecision
+        ``is_spot`` with the reason and, if so, the :class:`SpotBlob`.
+    """
+    r = frame.radius
+    n = frame.grey.shape[0]
+    lin = _clean_linear(frame)
+    ii, jj = np.mgrid[0:n, 0:n]
+    rho = np.hypot(ii - frame.half, jj - frame.half)
+    inner = frame.inside & (rho < 0.92 * r)
+    if inner.sum() < 500:
+        return SpotDecision(False, "field too small")
+    vals = lin[inner]
+    bg = float(np.median(vals))
+    top = float(np.percentile(vals, 99.99))
+    figs = {"background": bg, "top": top}
+    if top < 2.0 * max(bg, 1e-4) or top < 0.02:
+        return SpotDecision(False, "no compact bright region on a dim field", figures=figs)
+    thr = bg + 0.5 * (top - bg)
+    labels, count = label((lin > thr) & frame.inside)
+    if count == 0:
+        return SpotDecision(False, "no bright region", figures=figs)
+    sizes = np.bincount(labels.ravel())
+    sizes[0] = 0
+    best = int(np.argmax(sizes))
+    comp = labels == best
+    area = float(sizes[best])
+    field_area = float(np.pi * r * r)
+    rows, cols = np.nonzero(comp)
+    r_lo, r_hi = rows.min(), rows.max()
+    c_lo, c_hi = cols.min(), cols.max()
+    len_rows, len_cols = (r_hi - r_lo + 1) / r, (c_hi - c_lo + 1) / r
+    reach = float(rho[comp].max()) / r
+    fill = area / max((r_hi - r_lo + 1) * (c_hi - c_lo + 1), 1)
+    # the rest of the field: bright pixels other than the spot, and evenness of the background
+    others = float(((lin > thr) & frame.inside & ~comp).sum()) / field_area
+    grown = cv2.dilate(comp.astype(np.uint8), np.ones((int(0.15 * r) | 1,) * 2, np.uint8)).astype(bool)
+    rest = inner & ~grown
+    spread = float(np.percentile(lin[rest], 95) - np.percentile(lin[rest], 5)) / max(top - bg, 1e-6) \
+        if rest.sum() > 100 else 1.0
+    figs.update(spot_area=area / field_area, spot_rows=len_rows, spot_cols=len_cols, spot_reach=reach,
+                spot_fill=fill, other_bright=others, background_spread=spread)
+    checks = [
+        (area / field_area <= 0.08, "bright region too large for a spot"),
+        (len_rows <= 0.6 and len_cols <= 0.6, "bright region too long for a spot"),
+        (len_rows >= 0.025 and len_cols >= 0.025, "bright region too small for a spot"),
+        (reach <= 0.93, "bright region reaches the field's rim"),
+        (fill >= 0.45, "bright region not compact"),
+        (others <= 0.002, "more than one bright region"),
+        (spread <= 0.5, "field outside the bright region uneven"),
+    ]
+    for ok, why in checks:
+        if not ok:
+            return SpotDecision(False, why, figures=figs)
+    # the level just beyond each end of the bright part along the axis: the spot's dim part
+    # (its values below the index, still lit by Fresnel reflection) on one side, the dim field
+    # on the other; a wholly light spot has the field on both sides
+    col = float(np.mean(cols))
+    half_w = 0.5 * (c_hi - c_lo + 1)
+    band = slice(max(0, int(col - 0.3 * half_w)), min(n, int(col + 0.3 * half_w) + 1))
+    prof = lin[:, band].mean(axis=1)
+    span = int(r_hi - r_lo + 1)
+    bright = float(np.median(prof[r_lo:r_hi + 1]))
+    look = max(3, int(0.3 * span))
+    gap = max(2, int(0.05 * span))
+    before = prof[max(0, r_lo - gap - look):max(0, r_lo - gap)]
+    after = prof[r_hi + gap + 1:r_hi + gap + 1 + look]
+    lev_before = float(np.median(before)) if len(before) else bg
+    lev_after = float(np.median(after)) if len(after) else bg
+    dim_thr = bg + 0.12 * (bright - bg)
+    dim_side = 0
+    if max(lev_before, lev_after) > dim_thr and abs(lev_before - lev_after) > 0.08 * (bright - bg):
+        dim_side = -1 if lev_before > lev_after else 1
+        figs["step_ratio"] = (bright - bg) / max(max(lev_before, lev_after) - bg, 1e-6)
+    dim_level = max(lev_before, lev_after) if dim_side else bg
+    figs.update(level_before=lev_before, level_after=lev_after, bright=bright)
+    # the whole oval along the axis: bright part plus dim part, where the profile leaves the field level
+    thr_whole = bg + 0.4 * (dim_level - bg) if dim_side else bg + 0.5 * (bright - bg)
+    lo_row, hi_row = float(r_lo), float(r_hi)
+    if dim_side < 0:
+        lo_row = _walk(prof, r_lo, -1, thr_whole)
+    elif dim_side > 0:
+        hi_row = _walk(prof, r_hi, +1, thr_whole)
+    if dim_side == 0:
+        lo_row, hi_row = _walk(prof, r_lo, -1, thr_whole), _walk(prof, r_hi, +1, thr_whole)
+    r0, a_ax = 0.5 * (lo_row + hi_row), 0.5 * (hi_row - lo_row)
+    if a_ax > 0.4 * r:
+        return SpotDecision(False, "spot too long", figures=figs)
+    figs.update(oval_rows=2 * a_ax / r)
+    blob = SpotBlob(float(r_lo), float(r_hi), col, float(half_w), dim_side, top / max(bg, 1e-6), bg, bright,
+                    (float(r0), float(a_ax)), figs)
+    return SpotDecision(True, "compact bright oval on a dim field", blob, figs)
+
+
+def _fit_ellipse(rows, cols):
+    """Axis-aligned ellipse ``A r^2 + B c^2 + C r + D c = 1`` by linear least squares; (r0, c0, a, b)."""
+    if len(rows) < 6:
+        return None
+    # about the points' mean (inside the oval), so that the form needs no constant term
+    mr, mc = float(np.mean(rows)), float(np.mean(cols))
+    x, y = rows - mr, cols - mc
+    design = np.stack([x**2, y**2, x, y], axis=1)
+    scale = np.abs(design).max(axis=0) + 1e-12
+    coef, *_ = np.linalg.lstsq(design / scale, np.ones(len(rows)), rcond=None)
+    A, B, C, D = coef / scale
+    if A <= 0 or B <= 0:
+        return None
+    x0, y0 = -C / (2 * A), -D / (2 * B)
+    f = 1 + C * C / (4 * A) + D * D / (4 * B)
+    if f <= 0:
+        return None
+    return float(x0 + mr), float(y0 + mc), float(math.sqrt(f / A)), float(math.sqrt(f / B))
+
+
+def _flip_blob(blob: SpotBlob, n: int) -> SpotBlob:
+    return SpotBlob(n - 1 - blob.row_hi, n - 1 - blob.row_lo, n - 1 - blob.col, blob.half_width, -blob.dim_side,
+                    blob.contrast, blob.background, blob.bright, (n - 1 - blob.oval[0], blob.oval[1]), blob.figures)
+
+
+def fresnel_rise(values, index, blur, prism_index=PRISM_INDEX):
+    """Normalised table reflectance along the value axis, blurred by a Gaussian of ``blur`` (value units).
+
+    Fresnel equations (unpolarised, :func:`critline.optics.unpolarised_reflectance`); 1 at and
+    above ``index`` (total reflection).
+    """
+    values = np.asarray(values, float)
+    step = 0.0002
+    grid = np.arange(values.min() - 5 * blur - 0.01, values.max() + 5 * blur + 0.01, step)
+    refl = unpolarised_reflectance(np.minimum(grid, prism_index * 0.9999), index, prism_index)
+    if blur > 0:
+        refl = gaussian_filter1d(refl, blur / step, mode="nearest")
+    return np.interp(values, grid, refl)
+
+
+def fit_split(values, brightness, first_guess, reach=0.02):
+    """Least-squares fit of ``a + b * fresnel_rise(values, n, blur)``; returns ``(n, rms, blur)``.
+
+    Grid search over ``n`` within ``first_guess +- reach`` (0.0005 steps) and a
+    few blur widths, the levels ``a, b`` solved linearly at each node.
+    """
+    v = np.asarray(values, float)
+    y = np.asarray(brightness, float)
+    best = (float(first_guess), np.inf, 0.0)
+    for blur in (0.0005, 0.0015, 0.003, 0.005, 0.008):
+        for n in np.arange(first_guess - reach, first_guess + reach + 1e-9, 0.0005):
+            x = fresnel_rise(v, n, blur)
+            design = np.stack([np.ones_like(x), x], axis=1)
+            coef, *_ = np.linalg.lstsq(design, y, rcond=None)
+            if coef[1] <= 0:
+                continue
+            rms = float(np.sqrt(np.mean((design @ coef - y) ** 2)))
+            if rms < best[1]:
+                best = (float(n), rms, blur)
+    return best
+
+
+def _graduations(frame: FieldFrame, inst: Instrument, values_down):
+    dark = normalised(frame.grey, frame.inside, frame.radius)
+    col_abs = find_column(normalised(frame.grey, frame.inside, frame.radius, relative=False),
+                          frame.inside, frame.radius, inst.count)
+    col_rel = find_column(dark, frame.inside, frame.radius, inst.count)
+    col = col_abs if col_abs.periodicity >= col_rel.periodicity else col_rel
+    return find_graduations(frame, inst, dark, col, values_down)
+
+
+def _reduce_for(size: float, want: float) -> int:
+    for r in (8, 4, 2):
+        if size / r >= want:
+            return r
+    return 1
+
+
+def spot_frame(photo: LoadedPhoto, circle) -> FieldFrame:
+    """The field of ``photo`` resampled with the scale axis along the rows (working resolution)."""
+    rw = _reduce_for(2 * circle.r, WORK_DIAMETER)
+    rgb = decode(photo, rw)
+    wcx, wcy, wr = (circle.cx - (rw - 1) / 2) / rw, (circle.cy - (rw - 1) / 2) / rw, circle.r / rw
+    grey_w = (0.299 * rgb[..., 0] + 0.587 * rgb[..., 1] + 0.114 * rgb[..., 2]).astype(np.float32)
+    axis = axis_angle(grey_w, wcx, wcy, wr)
+    return make_frame(rgb, wcx, wcy, wr, axis.angle, rw)
+
+
+def read_spot_view(photo: LoadedPhoto, circle, instrument: Instrument | None = None, calibration=None,
+                   name: str | None = None, force: bool = False) -> PhotoReading | None:
+    """Read a spot view, or return None when the photo is not one (see the module's hook example).
+
+    Parameters
+    ----------
+    photo : LoadedPhoto
+        From :func:`critline.photo.load.load_photo`.
+    circle : critline.photo.field.FieldCircle
+        The field stop found by :func:`critline.photo.field.find_field` (full-size pixels).
+    instrument, calibration :
+        As for :func:`critline.photo.read_photo`.
+    name : str
+        The photo's name as given (default: ``"photo"``).
+    force : bool
+        Read as a spot view even if it does not look like one (rejected with
+        the detector's reason if no spot is found).
+    """
+    inst = instrument or DEFAULT
+    name = name or "photo"
+    try:
+        frame = spot_frame(photo, circle)
+        decision = looks_like_spot_view(frame)
+    except (cv2.error, ValueError, MemoryError) as exc:
+        return rejected(name, photo.sha256, f"spot view check failed ({type(exc).__name__})") if force else None
+    if not decision.is_spot:
+        return rejected(name, photo.sha256, f"no spot found: {decision.reason}") if force else None
+    try:
+        return read_spot(frame, decision.blob, inst, calibration, name, photo.sha256,
+                         field_circle=(circle.cx, circle.cy, circle.r))
+    except PhotoRejected as exc:
+        return rejected(name, photo.sha256, str(exc))
+    except (cv2.error, ValueError, FloatingPointError, np.linalg.LinAlgError) as exc:
+        return rejected(name, photo.sha256, f"spot view could not be analysed ({type(exc).__name__})")
+
+
+def read_spot(frame: FieldFrame, blob: SpotBlob, instrument: Instrument | None = None, calibration=None,
+              name: str = "photo", sha256: str = "", field_circle=None) -> PhotoReading:
+    """Measure the spot's split on the graduated scale and read it (one photo).
+
+    Status ``ok`` with one Edge of kind ``"spot"`` when the split lies inside
+    the spot; ``no_edge`` when the spot is wholly light (or its dim part
+    unseen) or the split lies at its very end, with the reason; the figures
+    keep the spot's centre, length and dark fraction in scale units for
+    :func:`read_spot_series`.  Raises :class:`PhotoRejected` when the
+    graduations cannot be read.
+    """
+    inst = instrument or DEFAULT
+    n = frame.grey.shape[0]
+    values_down = None if blob.dim_side == 0 else blob.dim_side < 0
+    try:
+        grads, frame2 = _graduations(frame, inst, values_down)
+    except GraduationsNotFound as exc:
+        raise PhotoRejected(f"spot view: {exc}") from None
+    if abs(((frame2.angle - frame.angle) + np.pi) % (2 * np.pi) - np.pi) > 1.0:
+        blob = _flip_blob(blob, n)
+    flags = [FLAG, *grads.flags]
+    figures = dict(blob.figures)
+    figures.update({f"graduations_{k}": v for k, v in grads.figures.items() if isinstance(v, (int, float))})
+    lin = _clean_linear(frame2)
+    band = slice(max(0, int(blob.col - 0.3 * blob.half_width)), min(n, int(blob.col + 0.3 * blob.half_width) + 1))
+    prof = lin[:, band].mean(axis=1)
+    rows = np.arange(n, dtype=float)
+    idx = grads.index_of(rows)
+    values = inst.first + inst.step * idx
+    span = blob.row_hi - blob.row_lo + 1
+    bright_lvl, bg = blob.bright, blob.background
+    ok_v = np.isfinite(values)
+    r0, a_ax = blob.oval
+    if blob.dim_side == 0 or "direction_undetermined" in flags or ok_v.sum() < 10:
+        return _no_split(name, sha256, blob, inst, values, rows, flags, figures, field_circle,
+                         "spot wholly light (no split seen): the index lies below the spot")
+    # in frame2 values increase down the rows, so the dim part lies above the bright part
+    split_guess = float(np.interp(blob.row_lo, rows[ok_v], values[ok_v]))
+    v_dim_end = float(np.interp(r0 - 0.85 * a_ax, rows[ok_v], values[ok_v]))
+    hi_row = blob.row_lo + 0.6 * span
+    sel = ok_v & (values >= max(split_guess - 0.015, v_dim_end)) & (rows <= hi_row)
+    if sel.sum() < 6:
+        return _no_split(name, sha256, blob, inst, values, rows, flags, figures, field_circle,
+                         "spot too small to measure its split")
+    if blob.figures.get("step_ratio", np.inf) < 2.2:
+        # no clear step from a dim part up to a totally reflected part: a wholly dark spot that
+        # brightens along its length (Fresnel), not a split
+        return _no_split(name, sha256, blob, inst, values, rows, flags, figures, field_circle,
+                         "spot wholly dark (no totally reflected part): the index lies above the spot",
+                         keep=True)
+    # the bright part is totally reflected: flat, unlike the Fresnel slope of a wholly dim spot
+    inner_b = prof[int(blob.row_lo + 0.3 * span):int(blob.row_hi - 0.1 * span) + 1]
+    if len(inner_b) >= 4:
+        halves = np.array_split(inner_b, 2)
+        tilt = abs(float(np.median(halves[1]) - np.median(halves[0]))) / max(bright_lvl, 1e-6)
+        figures["bright_part_slope"] = tilt
+        if tilt > 0.15:
+            return _no_split(name, sha256, blob, inst, values, rows, flags, figures, field_circle,
+                             "no totally reflected part in the spot (wholly dark spot?): the index lies above it",
+                             keep=True)
+    ri_fit, rms, blur = fit_split(values[sel], prof[sel], split_guess)
+    split_row = float(np.interp(ri_fit, values[ok_v], rows[ok_v]))
+    frac = float(np.clip((split_row - (r0 - a_ax)) / max(2 * a_ax, 1e-6), 0, 1))
+    scale_pos = (ri_fit - inst.first) / inst.step
+    v_lo, v_c, v_hi = np.interp([r0 - a_ax, r0, r0 + a_ax], rows[ok_v], values[ok_v])
+    figures.update(split_fit_rms=rms / max(bright_lvl - bg, 1e-6), split_blur=blur, dark_fraction=frac,
+                   spot_centre_scale=float((v_c - inst.first) / inst.step),
+                   spot_length_scale=float((v_hi - v_lo) / inst.step),
+                   split_scale=float(scale_pos))
+    if not SPLIT_MARGIN <= frac <= 1 - SPLIT_MARGIN:
+        return _no_split(name, sha256, blob, inst, values, rows, flags, figures, field_circle,
+                         "the split lies at the spot's very end: move the head until the spot is half dark",
+                         keep=True)
+    k_unc = float(grads.index_uncertainty(split_row))
+    scale_unc = math.hypot(SPOT_PRECISION / inst.step, k_unc)
+    eflags: tuple[str, ...] = ()
+    if calibration is not None:
+        ri, unc, eflags = calibration.scale_to_ri(scale_pos, scale_unc)
+        unc = max(unc, SPOT_PRECISION)
+    else:
+        ri, unc = inst.value(scale_pos), scale_unc * inst.step
+    if inst.liquid_ri is not None and ri >= inst.liquid_ri - SPOT_PRECISION:
+        flags.append("near_liquid")
+    edge = Edge(ri=round(float(ri), 3), uncertainty=float(unc), kind="spot", scale_position=float(scale_pos),
+                scale_uncertainty=float(scale_unc), contrast=float(np.clip(1 - bg / bright_lvl, 0, 1)),
+                field_position=float((split_row - frame2.half) / frame2.radius), flags=tuple(eflags))
+    return PhotoReading(photo=name, sha256=sha256, status="ok", reason=None, edges=(edge,), light="unknown",
+                        mode="graduations", quality=Quality(tuple(dict.fromkeys(flags)), _clean(figures)),
+                        profile=_profile(values, prof, sel, inst), field_circle=field_circle)
+
+
+def _walk(prof, start, direction, level):
+    """First row from ``start`` in ``direction`` where ``prof`` falls below ``level`` (sub-row)."""
+    i = int(np.clip(start, 0, len(prof) - 1))
+    while 0 <= i + direction < len(prof) and prof[i + direction] >= level:
+        i += direction
+    j = i + direction
+    if not 0 <= j < len(prof):
+        return float(i)
+    a, b = prof[i], prof[j]
+    t = (a - level) / (a - b) if a != b else 0.5
+    return float(i + direction * np.clip(t, 0, 1))
+
+
+def _profile(values, prof, sel, inst):
+    ok = np.isfinite(values)
+    lo, hi = np.flatnonzero(sel)[[0, -1]]
+    pad = (hi - lo)
+    keep = np.zeros_like(ok)
+    keep[max(0, lo - pad):hi + pad + 1] = True
+    keep &= ok
+    top = float(prof[keep].max()) if keep.any() else 1.0
+    return (tuple(float(x) for x in (values[keep] - inst.first) / inst.step),
+            tuple(float(y) for y in prof[keep] / max(top, 1e-6)))
+
+
+def _clean(figures: dict) -> dict:
+    out = {}
+    for k, v in figures.items():
+        if isinstance(v, (bool, np.bool_)):
+            out[k] = bool(v)
+        elif isinstance(v, (int, float, np.integer, np.floating)):
+            out[k] = float(v) if math.isfinite(float(v)) else None
+    return out
+
+
+def _no_split(name, sha256, blob, inst, values, rows, flags, figures, field_circle, reason, keep=False):
+    ok = np.isfinite(values)
+    if not keep and "direction_undetermined" not in flags and ok.sum() > 2:
+        # wholly light spot: its centre and length still serve a series
+        r0, a_ax = blob.oval
+        v_lo, v_c, v_hi = np.interp([r0 - a_ax, r0, r0 + a_ax], rows[ok], values[ok])
+        figures.update(dark_fraction=0.0, spot_centre_scale=float((v_c - inst.first) / inst.step),
+                       spot_length_scale=float((v_hi - v_lo) / inst.step))
+    return PhotoReading(photo=name, sha256=sha256, status="no_edge", reason=reason, edges=(), light="unknown",
+                        mode="graduations", quality=Quality(tuple(dict.fromkeys(flags)), _clean(figures)),
+                        field_circle=field_circle)
+
+
+@dataclass(frozen=True)
+class SpotSeriesReading:
+    """A spot reading from a series of photos of one stone (the head moved between them).
+
+    ``ri``/``uncertainty`` at 589.3 nm (None when no reading), ``method``
+    (``'half_dark_fit'`` or ``'single_split'``), ``used``: names of
+    the photos that counted, ``reason`` when there is no reading, ``flags``.
+    """
+
+    status: str
+    ri: float | None
+    uncertainty: float | None
+    method: str | None
+    used: tuple[str, ...]
+    reason: str | None = None
+    flags: tuple[str, ...] = ()
+    figures: dict = field(default_factory=dict)
+
+    def edge(self) -> Edge | None:
+        """The reading as an Edge of kind ``"spot"`` (None without a reading)."""
+        if self.ri is None:
+            return None
+        sp = self.figures.get("half_dark_scale", float("nan"))
+        return Edge(ri=self.ri, uncertainty=float(self.uncertainty), kind="spot", scale_position=float(sp),
+                    scale_uncertainty=float(self.figures.get("half_dark_scale_uncertainty", float("nan"))),
+                    contrast=0.0)
+
+
+def read_spot_series(readings: Sequence[PhotoReading], instrument: Instrument | None = None,
+                     calibration=None) -> SpotSeriesReading:
+    """Where the spot is half dark, from several spot photos of one stone.
+
+    Each photo gives the spot's centre (scale units) and the dark fraction of
+    its length; the centre at which the dark fraction is one half is found by
+    a least-squares straight line through the photos showing a split (the
+    dark fraction falls linearly as the spot moves up the scale), or, with one
+    such photo (or photos too close together), from their centres and
+    fractions.  Photos with a wholly light spot do not bound the answer here
+    (a wholly dark spot is too faint to be found); without a split there is
+    no reading.
+    """
+    inst = instrument or DEFAULT
+    pts, names, light_only = [], [], []
+    for r in readings:
+        f = r.quality.figures if r.quality else {}
+        c, frac = f.get("spot_centre_scale"), f.get("dark_fraction")
+        if c is None or frac is None or r.status == "rejected" or FLAG not in r.quality.flags:
+            continue
+        if r.status == "ok":
+            pts.append((float(c), float(frac), float(f.get("spot_length_scale") or 0.0)))
+            names.append(r.photo)
+        else:
+            light_only.append((float(c), float(frac), r.photo))
+    figures: dict = {}
+    if len(pts) >= 2 and np.ptp([p[0] for p in pts]) > 0.2:
+        c = np.array([p[0] for p in pts])
+        fr = np.array([p[1] for p in pts])
+        slope, icpt = np.polyfit(c, fr, 1)
+        if slope < 0:
+            half = (0.5 - icpt) / slope
+            resid = fr - (slope * c + icpt)
+            s_unc = float(np.sqrt(np.sum(resid**2) / max(len(c) - 2, 1)) / abs(slope)) if len(c) > 2 else 0.0
+            method = "half_dark_fit"
+        else:
+            half, s_unc, method = None, None, None
+    else:
+        half = s_unc = method = None
+    if half is None and pts:
+        # the spot's centre plus the offset of its split from the middle
+        est = [c + (fr - 0.5) * length for c, fr, length in pts]
+        half, s_unc, method = float(np.mean(est)), float(np.std(est)) if len(est) > 1 else 0.0, "single_split"
+    if half is None:
+        return SpotSeriesReading("no_edge", None, None, None, tuple(p for *_, p in light_only),
+                                 reason="no photo of the series shows the spot's split", flags=(FLAG,))
+    scale_unc = math.hypot(SPOT_PRECISION / inst.step, s_unc or 0.0)
+    figures.update(half_dark_scale=float(half), half_dark_scale_uncertainty=scale_unc, photos=len(pts))
+    if calibration is not None:
+        ri, unc, eflags = calibration.scale_to_ri(half, scale_unc)
+        unc = max(unc, SPOT_PRECISION)
+    else:
+        ri, unc, eflags = inst.value(half), scale_unc * inst.step, ()
+    return SpotSeriesReading("ok", round(float(ri), 3), float(unc), method, tuple(names),
+                             flags=(FLAG, *eflags), figures=figures)
