@@ -441,6 +441,17 @@ def _fit_group(p: _Profile, group, lo_limit, hi_limit, liquid_ri, prism_index):
             break
         s_hint = float(np.clip(sig * (2.0 if high else 0.5), 0.4 * p.spacing, SIGMA_MAX))
         peak = float(trial.fit.onsets[0]) - 0.5 * s_hint
+    if trial.fit.sigma < p.spacing:
+        # An edge sharper than the sampling: the fit surface is bumpy in the onset
+        # (it may sit anywhere between two samples), so start again from a blur of
+        # one sample and the onset half a sample either side; keep the best.
+        n_fit = float(trial.fit.onsets[0])
+        for shift in (-0.5, 0.5):
+            n0 = min(max(n_fit + shift * p.spacing, window.values[1]), window.values[-2])
+            alt = _try(p, window, [n0], min(max(p.spacing, s_lo * 1.01), s_hi * 0.99),
+                       s_lo, s_hi, False)
+            if alt.valid and alt.fit.chi2 < trial.fit.chi2:
+                trial = alt
     one = trial
     # the plainer explanation: smooth shading only (quadratic trend)
     tau = window.tau
@@ -590,7 +601,9 @@ def _terms(trial: _Trial, p: _Profile) -> list[_Term]:
     for k in range(fit.count):
         n = float(fit.onsets[k])
         stat = math.sqrt(max(cov[k, k], 0.0) * inflation)
-        floor = math.hypot(FLOOR_BLUR_FRACTION * fit.sigma, FLOOR_SPACING_FRACTION * p.spacing)
+        # an edge sharper than the sampling leaves the onset loose by a part of a sample
+        sampling = FLOOR_SPACING_FRACTION * p.spacing * min(p.spacing / fit.sigma, 2.0)
+        floor = math.hypot(FLOOR_BLUR_FRACTION * fit.sigma, sampling)
         hidden = _hidden_by_clipping(fit, window, k) if clipped_near else 0.0
         floor = math.hypot(floor, FLOOR_CLIPPED_FRACTION * hidden)
         if trial.alt_onsets is not None:
