@@ -62,14 +62,14 @@ dl.facts dt{color:var(--muted)}
 dl.facts dd{margin:0;font-variant-numeric:tabular-nums}
 .pm{color:var(--muted)}
 ol.cands{list-style:none;padding:0;margin:0}
-ol.cands li{padding:6px 0;border-bottom:1px dotted var(--rule)}
+ol.cands>li{padding:6px 0;border-bottom:1px dotted var(--rule)}
 .cand-name{font-weight:600}
 .tie{font-size:12px;color:var(--high);margin-left:6px}
 .alias{color:var(--muted);font-size:13px}
 .meter{display:inline-block;width:90px;height:7px;background:var(--wash);margin:0 8px 0 4px;
 vertical-align:middle;border-radius:4px;overflow:hidden}
 .meter span{display:block;height:100%;background:var(--low)}
-.why{font-size:13px;margin:2px 0 0 0;padding:0;list-style:none}
+.why{font-size:13px;margin:2px 0 0 0;padding:0;list-style:none;display:flex;flex-wrap:wrap;gap:2px 16px}
 .why .agree::before{content:"+ ";color:var(--agree);font-weight:700}
 .why .conflict::before{content:"\\2212  ";color:var(--conflict);font-weight:700}
 .why .conflict{color:var(--conflict)}
