@@ -306,6 +306,10 @@ class _Problem:
         basis[:, 2 : 2 + count] = (1.0 - at[:count]).T
         basis[:, 2 + count] = count * tau - at[count]
         basis[:, 3 + count :] = -at[count + 1 :].T
+        if win.clipped.any():
+            # with the top of the edge clipped the blur shape cannot be told from the
+            # edge's own amplitude: keep the plain Gaussian blur there
+            basis[:, 3 + count :] = 0.0
         coef, weight = solve_linear(basis, win, return_weights=True)
         model = basis @ coef
         r = (win.brightness - model) * win.weight

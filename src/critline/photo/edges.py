@@ -56,6 +56,11 @@ from critline.photo import edgemodel as em
 MIN_SAMPLES = 24
 #: Where contact liquids commonly sit when the instrument does not say (from memory).
 LIQUID_ZONE = (1.775, 1.815)
+#: How far the contact liquid's edge may sit below / above the instrument's stated
+#: liquid index (temperature, evaporation of the solvent, another batch; from memory).
+LIQUID_DRIFT = (0.012, 0.022)
+#: A liquid step fainter than this (relative contrast) is the liquid line, not over the limit.
+FAINT_LIQUID = 0.35
 #: Widest blur accepted as an edge (scale units); a wider ramp is shading, not an edge.
 SIGMA_MAX = 0.010
 #: Smallest step accepted, relative to the bright level (stone edges / liquid edge).
@@ -336,10 +341,13 @@ def _try(p: _Profile, window: em.Window, onsets, sigma0, s_lo, s_hi, liquid_top:
     count = onsets.size
     span = window.values[-1] - window.values[0]
     theta0 = np.concatenate([[onsets[0]], np.diff(onsets), [math.log(sigma0), 0.0]])
+    # with the top of the edge clipped the tone exponent trades off against the
+    # unseen bright level: hold it near linear light there
+    g_lo, g_hi = (0.8, 1.25) if window.clipped.any() else em.G_BOUNDS
     lower = np.concatenate([[window.values[0]], np.full(count - 1, 1e-5),
-                            [math.log(s_lo), math.log(em.G_BOUNDS[0])]])
+                            [math.log(s_lo), math.log(g_lo)]])
     upper = np.concatenate([[window.values[-1]], np.full(count - 1, span),
-                            [math.log(s_hi), math.log(em.G_BOUNDS[1])]])
+                            [math.log(s_hi), math.log(g_hi)]])
     fit = em.fit(window, count, theta0, lower, upper)
     trial = _Trial(fit, window, _bic(fit), True, liquid_top)
     amps = fit.amplitudes
@@ -370,8 +378,10 @@ def _try(p: _Profile, window: em.Window, onsets, sigma0, s_lo, s_hi, liquid_top:
 
 
 def _in_liquid_zone(x, liquid_ri, tol=0.0):
+    """Where the contact liquid's edge may lie: the common range of contact liquids,
+    widened to the instrument's stated liquid (its index drifts with temperature)."""
     if liquid_ri is not None:
-        return abs(x - liquid_ri) <= max(0.006, tol)
+        return liquid_ri - LIQUID_DRIFT[0] - tol <= x <= liquid_ri + LIQUID_DRIFT[1] + tol
     return LIQUID_ZONE[0] - tol <= x <= LIQUID_ZONE[1] + tol
 
 
@@ -422,6 +432,7 @@ def _fit_group(p: _Profile, group, lo_limit, hi_limit, liquid_ri, prism_index):
     last = max(last + 0.5 * group[-1].width, peak)
     flags: list[str] = []
     trial = None
+    best_first = None
     for _attempt in range(3):
         top = max(last, peak + 2 * s_hint)
         lo = max(min(first, peak) - max(0.03, 12 * s_hint), lo_limit, p.values[0])
@@ -434,6 +445,13 @@ def _fit_group(p: _Profile, group, lo_limit, hi_limit, liquid_ri, prism_index):
             return None, flags
         n0 = min(max(peak + 0.5 * s_hint, window.values[1]), window.values[-2])
         trial = _try(p, window, [n0], s_hint, s_lo, s_hi, False)
+        if best_first is not None and best_first.valid and (
+                not trial.valid or trial.fit.chi2 / trial.fit.used
+                > best_first.fit.chi2 / best_first.fit.used):
+            trial = best_first  # a wider blur range did not fit better: keep the first
+            window = trial.window
+            break
+        best_first = trial
         sig = trial.fit.sigma
         high = sig > 0.97 * s_hi and s_hi < 1.5 * SIGMA_MAX
         low = sig < 1.03 * s_lo and s_lo > 0.3 * p.spacing * 1.01
@@ -629,14 +647,20 @@ def _terms(trial: _Trial, p: _Profile) -> list[_Term]:
 
 
 def _classify(terms: list[_Term], liquid_ri):
-    """Name each term stone or liquid; returns (edges, status, flags)."""
+    """Name each term stone or liquid; returns (edges, status, flags).
+
+    The top step is the contact liquid's edge when it lies where the liquid may
+    be and is either faint next to a stone edge below it (the liquid line) or the
+    only step.  Alone and strong (dark all the way up to it) it means over the
+    limit; alone and faint it is the liquid line on a field with no stone edge.
+    """
     flags: list[str] = []
     terms = sorted(terms, key=lambda t: t.value)
     liquid = None
     if terms:
         top = terms[-1]
         near = _in_liquid_zone(top.value, liquid_ri, 3 * top.uncertainty)
-        if near and (len(terms) == 1 or top.contrast < 0.35):
+        if near and (len(terms) == 1 or top.contrast < FAINT_LIQUID):
             liquid = top
             terms = terms[:-1]
             if liquid_ri is None:
@@ -650,7 +674,7 @@ def _classify(terms: list[_Term], liquid_ri):
         edges.append(_edge(liquid, "liquid"))
     if terms:
         status = "ok"
-    elif liquid is not None:
+    elif liquid is not None and liquid.contrast >= FAINT_LIQUID:
         status = "over_limit"
     else:
         status = "no_edge"
@@ -820,6 +844,12 @@ def analyse_profile(values, brightness, noise, *, liquid_ri=None, prism_index=1.
         if trial is None:
             continue
         for t in _terms(trial, p):
+            # the dark side must be seen below an edge and the bright side above it,
+            # else a field boundary or the profile's end passes for one
+            if t.value - p.values[0] < max(0.008, 5 * t.width) or \
+                    p.values[-1] - t.value < max(0.002, 2 * t.width):
+                flags.add("edge_at_profile_end")
+                continue
             if t.width <= SIGMA_MAX:
                 terms.append(t)
     edges, status, class_flags = _classify(terms, liquid_ri)
