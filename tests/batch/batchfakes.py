@@ -107,6 +107,7 @@ class FakeIdentification:
     candidates: tuple
     groups: tuple = ()
     separating_tests: tuple = ()
+    notes: tuple = ()
 
 
 def fake_analyse(observations, liquid_ri=None):
@@ -125,7 +126,8 @@ def fake_identify(analysis, sg=None, **_):
     return FakeIdentification(
         candidates=(FakeCandidate("quartz", ("amethyst",), 0.9, ("RI 1.544-1.553 fits",), ()),
                     FakeCandidate("<b>glass</b>", (), 0.2, (), ("birefringence too high",))),
-        separating_tests=("specific gravity: 2.65 vs 2.3-4.5",))
+        separating_tests=("specific gravity: 2.65 vs 2.3-4.5",),
+        notes=() if sg is None else (f"measured sg {sg:g}",))
 
 
 def fake_core():

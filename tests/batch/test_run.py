@@ -165,3 +165,23 @@ def test_a_stone_the_core_refuses_does_not_stop_the_batch(tmp_path, fake_core, m
     doc = batch_document(res)
     assert doc["stones"][0]["flags"] == ["not_analysed"] and doc["stones"][1]["candidates"]
     assert res.exit_code == EXIT_OK  # every photo got a result; the finding is about the stone
+
+
+def test_manifest_batch_passes_rotation_polariser_and_sg(tmp_path, fake_core):
+    shots = tmp_path / "shots"
+    write_fake_photo(shots / "IMG_0001.png", [1.5442])
+    write_fake_photo(shots / "IMG_0002.png", [1.5532])
+    write_fake_photo(shots / "IMG_0003.png", [1.7180])
+    manifest = tmp_path / "parcel.csv"
+    manifest.write_text("stone,photo,rotation,polariser,sg\n"
+                        "violet oval,shots/IMG_0001.png,0,0,2.65\n"
+                        "violet oval,shots/IMG_0002.png,0,90,2.65\n"
+                        "red cushion,shots/IMG_0003.png,,none,\n")
+    res = run_batch(manifest, out_dir=tmp_path / "out", workers=1, reader=fake_reader)
+    cushion, oval = res.stones
+    assert [(p.item.rotation, p.item.polariser) for p in oval.photos] == [(0.0, 0.0), (0.0, 90.0)]
+    assert [o.polariser for o in oval.analysis.observations] == [0.0, 90.0]
+    assert oval.identification.notes == ("measured sg 2.65",)
+    assert cushion.identification.notes == () and cushion.photos[0].item.polariser_setting == "none"
+    doc = batch_document(res)
+    assert doc["grouping"] == "manifest" and doc["stones"][1]["sg"] == 2.65
