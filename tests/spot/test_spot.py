@@ -147,3 +147,14 @@ def test_series_of_head_positions(tmp_path):
 
 def test_series_without_a_split_gives_no_reading():
     assert read_spot_series([]).status == "no_edge"
+
+
+def test_cli_writes_a_series_and_refuses_to_overwrite(tmp_path):
+    from critline.cli import main
+
+    args = ["synth", "spot", str(tmp_path / "HL"), "--ri", "1.66", "--photos", "2", "--megapixels", "0.3"]
+    assert main(args) == 0
+    truth = json.loads((tmp_path / "HL" / "h01.json").read_text())
+    assert truth["view"] == "spot" and truth["spot"]["ri"] == pytest.approx(1.66)
+    assert main(args) == 2  # usage error: refuses to overwrite
+    assert main(["synth", "spot", str(tmp_path / "X"), "--ri", "7"]) == 2

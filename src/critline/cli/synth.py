@@ -80,6 +80,43 @@ def photo(
     typer.echo(f"{sidecar}")
 
 
+@synth_app.command("spot", epilog=cautions.HELP_EPILOG)
+def spot(
+    folder: Path = typer.Argument(..., help="Folder to write the spot photos into (h00.jpg, h01.jpg ... with .json truth)."),
+    ri: float = typer.Option(None, "--ri", help="The curved stone's index at 589.3 nm (default: drawn from the seed)."),
+    photos: int = typer.Option(4, "--photos", min=1, max=20, help="Photos in the series (the head moves between them)."),
+    reach: float = typer.Option(0.35, "--reach", min=0.0, max=2.0, help="Spot centres span RI +- reach x spot length."),
+    seed: int = typer.Option(0, "--seed", help="Seed of the scene draw and of the noise."),
+    megapixels: float = typer.Option(1.2, "--megapixels", min=0.05, max=60, help="Frame size."),
+    clean: bool = typer.Option(False, "--clean", help="No noise, blur, tilt, dust, vignetting or phone processing."),
+    overwrite: bool = typer.Option(False, "--overwrite", help="Replace existing files."),
+) -> None:
+    """Render spot (distance) views of a curved stone: one photo per head position."""
+    from critline.synth.scene import clean_overrides
+    from critline.synth.spot import random_spot_scene, series_values, write_spot_series
+
+    overrides: dict = dict(clean_overrides()) if clean else {}
+    if ri is not None:
+        if not 1.0 < ri < 3.0:
+            raise UsageError(f"--ri: {ri} is not a refractive index")
+        overrides["stone_ris"] = (ri,)
+    try:
+        base = random_spot_scene(seed, megapixels=megapixels, **overrides)
+        if ri is not None:
+            import dataclasses
+
+            base = dataclasses.replace(base, liquid_ri=max(base.liquid_ri, ri + 0.02))
+    except (TypeError, ValueError) as exc:
+        raise UsageError(f"{folder}: {exc}") from None
+    n = base.stone_ris[0]
+    centres = series_values(n, base.spot_length, photos, reach) if photos > 1 else (base.spot_value,)
+    try:
+        written = write_spot_series(folder, base, seed, centres, overwrite=overwrite)
+    except FileExistsError as exc:
+        raise UsageError(str(exc)) from None
+    typer.echo(f"wrote {len(written)} spot photo(s) of a stone of RI {n:.4f} under {folder}")
+
+
 @synth_app.command("stone", epilog=cautions.HELP_EPILOG)
 def stone(
     folder: Path = typer.Argument(..., help="Folder for the stone's photos (rRRR_pol0.jpg, rRRR_pol90.jpg, rRRR_none.jpg)."),
