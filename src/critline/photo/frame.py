@@ -105,6 +105,16 @@ def axis_angle(grey: np.ndarray, cx: float, cy: float, r: float) -> AxisEstimate
     x0, x1 = max(0, int(cx - r)), min(w, int(cx + r) + 1)
     y0, y1 = max(0, int(cy - r)), min(h, int(cy + r) + 1)
     crop = grey[y0:y1, x0:x1]
+    if crop.dtype != np.float32:
+        crop = crop.astype(np.float32) / (65535.0 if crop.dtype == np.uint16 else 255.0)
+    # lines a few pixels wide are enough: work on at most ~500 px across the field
+    shrink = max(1, int(r // 250))
+    if shrink > 1:
+        crop = cv2.resize(crop, (max(1, crop.shape[1] // shrink), max(1, crop.shape[0] // shrink)),
+                          interpolation=cv2.INTER_AREA)
+        cx, cy, r = (cx - x0) / shrink, (cy - y0) / shrink, r / shrink
+        x0 = y0 = 0
+        y1, x1 = crop.shape[0], crop.shape[1]
     # high-pass first: thin graduations and the sharp shadow edge stay, the broad gradients of a
     # vignetting crescent or of uneven light do not
     sigma = max(1.0, r / 400)
@@ -136,8 +146,8 @@ def make_frame(rgb: np.ndarray, cx: float, cy: float, r: float, angle: float, re
 
     Parameters
     ----------
-    rgb : ndarray (H, W, 3) float32
-        Working image, stored (sRGB-encoded) values 0..1.
+    rgb : ndarray (H, W, 3)
+        Working image, stored (sRGB-encoded) values: float32 0..1, or uint8/uint16.
     cx, cy, r : float
         Field circle in working pixels.
     angle : float
@@ -152,9 +162,14 @@ def make_frame(rgb: np.ndarray, cx: float, cy: float, r: float, angle: float, re
     m = np.array([[-s, c, cx - half * c + half * s],
                   [c, s, cy - half * s - half * c]], dtype=np.float64)
     warped = cv2.warpAffine(rgb, m, (n, n), flags=cv2.INTER_LINEAR | cv2.WARP_INVERSE_MAP,
-                            borderMode=cv2.BORDER_CONSTANT, borderValue=(np.nan, np.nan, np.nan))
-    valid = np.isfinite(warped[..., 0])
-    warped = np.nan_to_num(warped, nan=0.0)
+                            borderMode=cv2.BORDER_CONSTANT, borderValue=(0, 0, 0))
+    if warped.dtype != np.float32:
+        warped = warped.astype(np.float32) * np.float32(1.0 / (65535.0 if rgb.dtype == np.uint16 else 255.0))
+    jj, ii = np.meshgrid(np.arange(n, dtype=np.float32), np.arange(n, dtype=np.float32))
+    xs = m[0, 0] * jj + m[0, 1] * ii + m[0, 2]
+    ys = m[1, 0] * jj + m[1, 1] * ii + m[1, 2]
+    h, w = rgb.shape[:2]
+    valid = (xs >= 0) & (xs <= w - 1) & (ys >= 0) & (ys <= h - 1)
     grey = (0.299 * warped[..., 0] + 0.587 * warped[..., 1] + 0.114 * warped[..., 2]).astype(np.float32)
     ii, jj = np.ogrid[0:n, 0:n]
     inside = valid & (((ii - half) ** 2 + (jj - half) ** 2) < (0.97 * r) ** 2)

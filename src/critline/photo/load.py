@@ -196,7 +196,7 @@ def load_photo(path: str | Path, max_pixels: int = MAX_PIXELS) -> LoadedPhoto:
     return LoadedPhoto(data, digest, fmt, w, h, mode, False, pixels)
 
 
-def decode(photo: LoadedPhoto, reduce: int = 1, grey: bool = False) -> np.ndarray:
+def decode(photo: LoadedPhoto, reduce: int = 1, grey: bool = False, raw: bool = False) -> np.ndarray:
     """Decode the photo at 1/``reduce`` size as float32, non-linear (as stored) values in 0..1.
 
     Parameters
@@ -206,6 +206,8 @@ def decode(photo: LoadedPhoto, reduce: int = 1, grey: bool = False) -> np.ndarra
         Linear reduction factor (area averaging).
     grey : bool
         Return luma (Rec. 601 weights, as JPEG stores it) instead of RGB.
+    raw : bool
+        Return the stored integers (uint8 or uint16) instead of float32 0..1.
 
     Returns
     -------
@@ -230,6 +232,16 @@ def decode(photo: LoadedPhoto, reduce: int = 1, grey: bool = False) -> np.ndarra
         if reduce > 1:
             h, w = arr.shape[:2]
             arr = cv2.resize(arr, (max(1, w // reduce), max(1, h // reduce)), interpolation=cv2.INTER_AREA)
+    if raw:
+        return arr
+    out = arr.astype(np.float32)
+    out *= scale
+    return out
+
+
+def to_float(arr: np.ndarray) -> np.ndarray:
+    """Stored integers (uint8/uint16) as float32 0..1."""
+    scale = 1.0 / (65535.0 if arr.dtype == np.uint16 else 255.0)
     out = arr.astype(np.float32)
     out *= scale
     return out

@@ -54,6 +54,17 @@ class Profile:
     figures: dict = field(default_factory=dict)
 
 
+def nan_median_rows(a: np.ndarray) -> np.ndarray:
+    """Median of each row ignoring NaN (sort-based; NaN sort last).  All-NaN rows give NaN."""
+    a = np.sort(a, axis=1)
+    count = np.isfinite(a).sum(axis=1)
+    lo = np.clip((count - 1) // 2, 0, a.shape[1] - 1)
+    hi = np.clip(count // 2, 0, a.shape[1] - 1)
+    rows = np.arange(a.shape[0])
+    med = 0.5 * (a[rows, lo] + a[rows, hi])
+    return np.where(count > 0, med, np.nan)
+
+
 def _smooth_gradient(prof: np.ndarray, sigma: float) -> np.ndarray:
     sm = cv2.GaussianBlur(prof.astype(np.float32).reshape(-1, 1), (1, 0), sigmaX=0, sigmaY=sigma).ravel()
     return np.gradient(sm)
@@ -67,24 +78,26 @@ def _fill(prof: np.ndarray) -> np.ndarray:
     return np.interp(np.arange(len(prof)), idx, prof[idx])
 
 
-def _edge_tilt(lum: np.ndarray, cols: np.ndarray, ok: np.ndarray, period: float) -> float:
+def _edge_tilt(lum: np.ndarray, cols: np.ndarray, ok: np.ndarray, period: float) -> tuple[float, float]:
     """Slope (rows per column) of the main brightness step across the columns.
 
     The gradient of each block of columns' median profile is aligned with
     the gradient of the median profile of all columns, in a window around the
     strongest step (cross-correlation, parabolic sub-pixel peak); a robust
     straight line (Theil-Sen) through the block shifts against the block
-    positions gives the slope.  Zero when no clear step is seen.
+    positions gives the slope.  Zero when no clear step is seen.  Also
+    returns the standard uncertainty (rows) of the step's row at the
+    reference column from the scatter of the blocks about that line.
     """
     from scipy.stats import theilslopes
 
     sig = max(1.0, period / 2)
     masked = np.where(ok, lum, np.nan)
     with np.errstate(all="ignore"):
-        ref = np.nanmedian(masked, axis=1)
+        ref = nan_median_rows(masked)
     valid = np.isfinite(ref)
     if valid.sum() < 40:
-        return 0.0
+        return 0.0, 0.0
     ref = _fill(ref)
     d_ref = _smooth_gradient(ref, sig)
     d_ref[~valid] = 0
@@ -94,12 +107,12 @@ def _edge_tilt(lum: np.ndarray, cols: np.ndarray, ok: np.ndarray, period: float)
     d_ref[vi.max() - margin:] = 0
     i0 = int(np.argmax(np.abs(d_ref)))
     if d_ref[i0] == 0:
-        return 0.0
+        return 0.0, 0.0
     half_w = int(max(10, 4 * period))
     max_shift = int(max(4, 3 * period))
     lo, hi = i0 - half_w, i0 + half_w + 1
     if lo - max_shift < 0 or hi + max_shift > len(ref):
-        return 0.0
+        return 0.0, 0.0
     tmpl = d_ref[lo:hi]
     tmpl = tmpl - tmpl.mean()
     blocks = np.array_split(np.arange(len(cols)), 10)
@@ -108,7 +121,7 @@ def _edge_tilt(lum: np.ndarray, cols: np.ndarray, ok: np.ndarray, period: float)
         if len(b) < 3:
             continue
         with np.errstate(all="ignore"):
-            pb = np.nanmedian(masked[:, b], axis=1)
+            pb = nan_median_rows(masked[:, b])
         seg_ok = np.isfinite(pb[lo - max_shift:hi + max_shift])
         if seg_ok.mean() < 0.95:
             continue
@@ -127,9 +140,12 @@ def _edge_tilt(lum: np.ndarray, cols: np.ndarray, ok: np.ndarray, period: float)
         shifts.append(j - max_shift + float(np.clip(off, -1, 1)))
         where.append(float(np.mean(cols[b])))
     if len(shifts) < 4:
-        return 0.0
-    slope = theilslopes(np.array(shifts), np.array(where))[0]
-    return float(np.clip(slope, -0.2, 0.2))
+        return 0.0, 0.0
+    sh, wh = np.array(shifts), np.array(where)
+    slope, intercept = theilslopes(sh, wh)[:2]
+    resid = sh - (intercept + slope * wh)
+    scatter = 1.4826 * float(np.median(np.abs(resid))) / np.sqrt(len(sh))
+    return float(np.clip(slope, -0.2, 0.2)), scatter
 
 
 def brightness_profile(frame: FieldFrame, v_lo: int, v_hi: int, exclude: int, period: float,
@@ -163,7 +179,7 @@ def brightness_profile(frame: FieldFrame, v_lo: int, v_hi: int, exclude: int, pe
     lum = (0.2126 * lin[..., 0] + 0.7152 * lin[..., 1] + 0.0722 * lin[..., 2]).astype(np.float32)
     ok = frame.inside[:, cand] & (np.abs(v[cand])[None, :] < 0.9 * chord[:, None])
     v_ref = (v_lo + v_hi) / 2 - half
-    tilt = _edge_tilt(lum, v[cand], ok, period)
+    tilt, edge_scatter = _edge_tilt(lum, v[cand], ok, period)
     if tilt != 0.0:
         shift = tilt * (v[cand] - v_ref)  # rows to add so the edge sits where it does at v_ref
         grid_r = (np.arange(n)[:, None] + shift[None, :]).astype(np.float32)
@@ -182,11 +198,11 @@ def brightness_profile(frame: FieldFrame, v_lo: int, v_hi: int, exclude: int, pe
     rgb = np.full((3, n), np.nan, np.float32)
     if len(sel):
         sub = masked[sel]
-        med[sel] = np.nanmedian(sub, axis=1)
-        mad[sel] = np.nanmedian(np.abs(sub - med[sel, None]), axis=1)
+        med[sel] = nan_median_rows(sub)
+        mad[sel] = nan_median_rows(np.abs(sub - med[sel, None]))
         for c in range(3):
-            rgb[c, sel] = np.nanmedian(np.where(ok[sel], lin[sel, :, c], np.nan), axis=1)
+            rgb[c, sel] = nan_median_rows(np.where(ok[sel], lin[sel, :, c], np.nan))
     noise = 1.2533 * 1.4826 * mad / np.sqrt(np.maximum(count, 1))
     noise = np.maximum(noise, 1e-4)
     return Profile(sel.astype(float), med[sel], noise[sel], rgb[:, sel], int(len(cand)), tilt,
-                   {"profile_columns": int(len(cand)), "edge_tilt": tilt})
+                   {"profile_columns": int(len(cand)), "edge_tilt": tilt, "edge_row_scatter": edge_scatter})

@@ -29,13 +29,20 @@ from critline.photo.profile import Profile, brightness_profile
 from critline.readings import Edge, PhotoReading, Quality, rejected
 
 #: Field diameter (pixels) wanted in the working image; decoding is reduced while it stays above.
-WORK_DIAMETER = 900
+WORK_DIAMETER = 560
 #: Short side (pixels) wanted for finding the field.
 COARSE_SHORT = 300
 
-#: Flags that mean the reading is degraded (its uncertainty is inflated accordingly).
-DEGRADING = ("blurred", "clipped_highlights", "low_contrast", "field_clipped", "graduations_partly_found",
-             "white_light", "low_resolution", "direction_undetermined", "pattern_weak", "edge_tilted")
+#: Edge blur (sigma, scale value units for a 0.01 step) above which a reading is flagged blurred.
+BLURRED_WIDTH = 0.004
+#: Stone-edge contrast below which a reading is flagged low_contrast.
+LOW_CONTRAST = 0.1
+
+#: Flags that mean the reading is degraded (the bench counts these); the others are informative.
+DEGRADING = ("blurred", "low_contrast", "graduations_partly_found", "white_light", "low_resolution",
+             "identification_weak", "clipped_highlights", "map_extrapolated")
+#: Flags of the 1-D edge analysis replaced by the reader's own definition.
+_OWN_FLAGS = ("blurred",)
 
 
 def _reduce_for(size: float, want: float) -> int:
@@ -168,9 +175,9 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
         raise PhotoRejected(fr.reason)
     circle = fr.circle
     rw = _reduce_for(2 * circle.r, WORK_DIAMETER)
-    rgb = decode(photo, rw)
+    rgb = decode(photo, rw, raw=True)
     wcx, wcy, wr = (circle.cx - (rw - 1) / 2) / rw, (circle.cy - (rw - 1) / 2) / rw, circle.r / rw
-    grey_w = (0.299 * rgb[..., 0] + 0.587 * rgb[..., 1] + 0.114 * rgb[..., 2]).astype(np.float32)
+    grey_w = cv2.cvtColor(rgb, cv2.COLOR_RGB2GRAY)
     axis = axis_angle(grey_w, wcx, wcy, wr)
     frame = make_frame(rgb, wcx, wcy, wr, axis.angle, rw)
     del rgb, grey_w
@@ -249,14 +256,20 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
         flags.append("low_resolution")
     if abs(prof.tilt) > 0.05:
         flags.append("edge_tilted")
-    flags.extend(f for f in getattr(analysis, "flags", ()) if f not in flags)
+    flags.extend(f for f in getattr(analysis, "flags", ()) if f not in flags and f not in _OWN_FLAGS)
     edges = []
+    stone_widths: list[float] = []
+    stone_contrasts: list[float] = []
     step_val = inst.step
     for e in analysis.edges:
         row = float(np.interp(e.value, values, prof.rows[ok]))
         k_unc = float(grads.index_uncertainty(row))
+        # the edge's own straightness across the field: scatter of its row between column blocks
+        rows_per_index = abs(float(np.polynomial.polynomial.polyval(
+            e.value / step_val - inst.first / step_val, np.polynomial.polynomial.polyder(grads.coef))))
+        k_straight = prof.figures.get("edge_row_scatter", 0.0) / max(rows_per_index, 1e-6)
         scale_pos = (e.value - inst.first) / step_val
-        scale_unc = math.hypot(e.uncertainty / step_val, k_unc)
+        scale_unc = math.sqrt((e.uncertainty / step_val) ** 2 + k_unc ** 2 + k_straight ** 2)
         u = (row - frame.half) / frame.radius
         eflags: tuple[str, ...] = ()
         if calibration is not None:
@@ -267,11 +280,20 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
                           scale_position=float(scale_pos), scale_uncertainty=float(scale_unc),
                           contrast=float(np.clip(e.contrast, 0, 1)), field_position=float(u),
                           flags=tuple(eflags)))
-        if getattr(e, "contrast", 1.0) < 0.1 and "low_contrast" not in flags:
-            flags.append("low_contrast")
-        if getattr(e, "width", 0.0) > 0.004 and "blurred" not in flags:
-            flags.append("blurred")
+        if e.kind == "stone" and not (grads.indices.min() - 2 <= scale_pos <= grads.indices.max() + 2):
+            if "map_extrapolated" not in flags:
+                flags.append("map_extrapolated")
+        if e.kind == "stone":
+            stone_widths.append(float(getattr(e, "width", 0.0)))
+            stone_contrasts.append(float(getattr(e, "contrast", 1.0)))
     edges.sort(key=lambda e: e.ri)
+    if stone_widths:
+        figures["edge_width"] = max(stone_widths)
+        figures["edge_contrast"] = min(stone_contrasts)
+        if max(stone_widths) > BLURRED_WIDTH * inst.step / 0.01:
+            flags.append("blurred")
+        if min(stone_contrasts) < LOW_CONTRAST:
+            flags.append("low_contrast")
     light = getattr(analysis, "light", "unknown")
     if light == "white" and "white_light" not in flags:
         flags.append("white_light")
