@@ -479,10 +479,14 @@ def _fit_group(p: _Profile, group, lo_limit, hi_limit, liquid_ri, prism_index):
     r0 = (window.brightness - basis0 @ coef0) * w
     m = max(one.fit.used, 1)
     bic0 = m * math.log(max(float(r0 @ r0), 1e-300) / m) + 3 * math.log(m)
-    if not one.valid or bic0 - one.bic < 25.0:
+    if not one.valid:
         return None, flags
     n1, s1 = float(one.fit.onsets[0]), one.fit.sigma
     proposals: list[tuple[list[float], bool]] = []
+    stone_cands = [c.position for c in group if not _in_liquid_zone(c.position, liquid_ri, 0.004)]
+    if len(stone_cands) >= 2 and stone_cands[-1] - stone_cands[0] > 3 * s1:
+        # two steps found apart in the same window (a birefringent stone's pair)
+        proposals.append(([stone_cands[0] + 0.5 * s1, stone_cands[-1] + 0.5 * s1], False))
     if _structured(one, n1 - 8 * s1 - 0.002, n1 + 4 * s1 + 0.001):
         # a pair fitted as one edge: one onset between the two and a blur that
         # spans both; split it symmetrically, or start from two slope peaks
@@ -528,6 +532,8 @@ def _fit_group(p: _Profile, group, lo_limit, hi_limit, liquid_ri, prism_index):
             t = _try(p, window2, onsets, best.fit.sigma, s_lo2, s_hi2, True)
             if t.valid and t.bic < best.bic - BIC_MORE_TERMS:
                 best = t
+    if bic0 - best.bic < 25.0:
+        return None, flags  # smooth shading explains the window as well
     if overlap and best.fit.count == 1:
         flags.append("edges_overlap")
     if best.window.clipped.any():
