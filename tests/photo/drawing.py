@@ -15,7 +15,7 @@ from critline.optics import unpolarised_reflectance
 
 def draw_eyepiece(size=(720, 960), centre=None, radius=None, angle_deg=0.0, edges=(1.544,),
                   prism=1.88, first=1.30, last=1.80, span=1.7, blur=1.2, noise=0.01,
-                  line_width=None, seed=0, grad_offset=-0.35):
+                  line_width=None, seed=0, grad_offset=-0.35, ink=0.75):
     """Return (uint8 RGB image, truth dict)."""
     rng = np.random.default_rng(seed)
     h, w = size
@@ -44,6 +44,7 @@ def draw_eyepiece(size=(720, 960), centre=None, radius=None, angle_deg=0.0, edge
     values = first + step * np.arange(count)
     pos = a * (values - mid) + b * (values - mid) ** 2
     lw = line_width if line_width is not None else max(1.0, radius / 220)
+    ink_strength = ink
     ink = np.zeros_like(s)
     v0 = grad_offset * radius
     for k, p in enumerate(pos):
@@ -55,7 +56,7 @@ def draw_eyepiece(size=(720, 960), centre=None, radius=None, angle_deg=0.0, edge
         prof = np.clip(lw / 2 + 0.5 - np.abs(u[near] - p), 0, 1)
         inside = (v[near] > v0) & (v[near] < v0 + length * radius)
         ink[near] = np.maximum(ink[near], prof * inside)
-    bright = bright * (1 - 0.75 * ink)
+    bright = bright * (1 - ink_strength * ink)
     r = np.hypot(dx, dy)
     stop = np.clip(radius - r + 0.5, 0, 1)
     lin = bright * stop + 0.003
@@ -67,5 +68,5 @@ def draw_eyepiece(size=(720, 960), centre=None, radius=None, angle_deg=0.0, edge
     img[..., 0] = np.clip(img[..., 0].astype(int) + 8, 0, 255)  # yellowish light
     img[..., 2] = (img[..., 2] * 0.7).astype(np.uint8)
     truth = {"field": {"cx": cx, "cy": cy, "r": radius}, "edges": list(edges), "axis_angle_deg": angle_deg,
-             "graduation_positions": pos}
+             "graduation_positions": pos, "map": (a, b, mid)}
     return img, truth

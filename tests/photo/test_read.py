@@ -117,3 +117,40 @@ def test_overlay_written_without_overwriting(synth_photos, tmp_path):
     made = sorted(p.name for p in folder.iterdir())
     assert len(made) == 2
     assert Image.open(folder / made[0 if made[0] != existing.name else 1]).size[0] > 100
+
+
+class _FieldOnlyCalibration:
+    """Stand-in for a calibration with a field-frame map: the drawing's own geometry (field
+    position in radii -> scale value), so the fallback can be checked against it."""
+
+    id = "drawn-geometry"
+    field_map = True
+
+    def __init__(self, a, b, mid, radius):
+        self.a, self.b, self.mid, self.radius = a, b, mid, radius
+
+    def _value(self, f):
+        u = f * self.radius
+        return self.mid + (-self.a + np.sqrt(self.a * self.a + 4 * self.b * u)) / (2 * self.b)
+
+    def field_to_ri(self, f, f_unc):
+        slope = (self._value(f + 1e-4) - self._value(f - 1e-4)) / 2e-4
+        return float(self._value(f)), float(np.hypot(abs(slope) * f_unc, 2e-4)), ("field_frame",)
+
+    def scale_to_ri(self, position, unc):  # pragma: no cover - not reached without graduations
+        raise AssertionError("graduations were not expected")
+
+
+def test_field_frame_fallback_without_graduations(tmp_path):
+    from tests.photo.drawing import draw_eyepiece
+
+    img, truth = draw_eyepiece(size=(720, 960), angle_deg=30.0, edges=(1.62,), seed=4, ink=0.0)
+    p = tmp_path / "blank-scale.png"
+    Image.fromarray(img).save(p)
+    assert read_photo(p).status == "rejected"  # no graduations and no field-frame map
+    a, b, mid = truth["map"]
+    cal = _FieldOnlyCalibration(a, b, mid, truth["field"]["r"])
+    r = read_photo(p, calibration=cal)
+    assert r.mode == "field_frame" and r.status == "ok", r.reason
+    stone = [e for e in r.edges if e.kind == "stone"]
+    assert stone and abs(stone[0].ri - 1.62) < max(3 * stone[0].uncertainty, 0.003)

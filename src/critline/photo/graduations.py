@@ -311,7 +311,7 @@ def find_graduations(frame: FieldFrame, instrument: Instrument, dark: np.ndarray
     """
     n = frame.grey.shape[0]
     half = frame.half
-    if col.periodicity < 2.5:
+    if col.periodicity < 2.0:
         raise GraduationsNotFound(f"graduations not found (no periodic column; score {col.periodicity:.1f})")
     band = dark[:, col.v_lo:col.v_hi + 1]
     ins = frame.inside[:, col.v_lo:col.v_hi + 1]

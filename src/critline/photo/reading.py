@@ -10,12 +10,14 @@ from __future__ import annotations
 
 import math
 import warnings
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import cv2
 import numpy as np
 
 from critline.instrument import DEFAULT, Instrument
+from critline.photo.edges import analyse_profile
 from critline.photo.field import find_field
 from critline.photo.frame import axis_angle, make_frame
 from critline.photo.graduations import (
@@ -53,43 +55,19 @@ def _reduce_for(size: float, want: float) -> int:
 
 
 def _analyse(values, brightness, noise, liquid_ri, rgb, prism_index=1.88):
-    """Call the edges helper's 1-D analysis (critline.photo.edges), or the crude stand-in."""
-    try:
-        from critline.photo.edges import analyse_profile
-    except ImportError:
-        return _crude_analysis(values, brightness, noise, liquid_ri)
+    """Stage 5: the edges helper's 1-D analysis of the profile (critline.photo.edges)."""
     return analyse_profile(values, brightness, noise, liquid_ri=liquid_ri, prism_index=prism_index, rgb=rgb)
 
 
-class _CrudeEdge:
-    def __init__(self, value, uncertainty, kind, contrast, width):
-        self.value, self.uncertainty, self.kind, self.contrast, self.width = value, uncertainty, kind, contrast, width
-        self.figures = {}
+@dataclass(frozen=True)
+class _NoEdges:
+    """Analysis result standing for "no stone edge" when the profile's features cannot be placed."""
 
-
-class _CrudeAnalysis:
-    def __init__(self, edges, status, light="unknown", flags=(), figures=None):
-        self.edges, self.status, self.light, self.flags, self.figures = edges, status, light, flags, figures or {}
-
-
-def _crude_analysis(values, brightness, noise, liquid_ri):
-    """Development stand-in until the edges helper's fit is available: one edge at the top of
-    the steepest rise.  Never used once ``critline.photo.edges`` exists."""
-    v = np.asarray(values, float)
-    b = np.asarray(brightness, float)
-    grid = np.linspace(v.min(), v.max(), max(50, len(v)))
-    bg = np.interp(grid, v, b)
-    sm = np.convolve(bg, np.ones(5) / 5, mode="same")
-    d = np.gradient(sm, grid)
-    i = int(np.argmax(d[5:-5])) + 5
-    hi = np.percentile(b, 95)
-    lo = np.percentile(b, 5)
-    if (hi - lo) < 0.1 * hi:
-        return _CrudeAnalysis((), "no_edge")
-    j = i
-    while j < len(sm) - 1 and sm[j] < lo + 0.95 * (hi - lo):
-        j += 1
-    return _CrudeAnalysis((_CrudeEdge(grid[j], 0.002, "stone", (hi - lo) / hi, 0.001),), "ok")
+    light: str = "unknown"
+    flags: tuple = ()
+    edges: tuple = ()
+    status: str = "no_edge"
+    figures: dict = field(default_factory=dict)
 
 
 def _dominant_step(profile: Profile, period: float, half: int, radius: float, lo=None, hi=None):
@@ -197,7 +175,7 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
         col_rel = find_column(dark, frame.inside, frame.radius, inst.count)
         col = col_abs if col_abs.periodicity >= col_rel.periodicity else col_rel
     except GraduationsNotFound as exc:
-        return _no_graduations(photo, name, str(exc), figures, flags, calibration), evidence
+        return _no_graduations(photo, name, str(exc), figures, flags, calibration, frame, circle, inst), evidence
     exclude = int(max(0.35 * frame.radius, 3 * (col.v_hi - col.v_lo + 1)))
     prof = brightness_profile(frame, col.v_lo, col.v_hi, exclude, col.period)
     decided = {}
@@ -211,7 +189,7 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
     try:
         grads, frame = find_graduations(frame, inst, dark, col, direction)
     except GraduationsNotFound as exc:
-        return _no_graduations(photo, name, str(exc), figures, flags, calibration), evidence
+        return _no_graduations(photo, name, str(exc), figures, flags, calibration, frame, circle, inst), evidence
     evidence["frame"] = frame
     evidence["graduations"] = grads
     n = frame.grey.shape[0]
@@ -244,7 +222,11 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
     evidence["profile"] = (values, bright)
     evidence["analysis"] = analysis
     if "direction_undetermined" in flags and analysis.edges:
-        raise PhotoRejected("scale direction undetermined (no clear dark side) but an edge-like feature found")
+        if max(float(getattr(e, "contrast", 1.0)) for e in analysis.edges) >= LOW_CONTRAST:
+            raise PhotoRejected("scale direction undetermined (no clear dark side) but an edge-like feature found")
+        # only faint features and no side darker than the other: no stone edge, and no value for the
+        # faint feature since the direction of the scale is not known
+        analysis = _NoEdges(getattr(analysis, "light", "unknown"), tuple(getattr(analysis, "flags", ())))
     # quality figures
     top = float(np.percentile(bright, 95))
     clipped = float(np.mean(frame.grey[frame.inside] > 0.985)) if frame.inside.any() else 0.0
@@ -316,10 +298,48 @@ def _thin(profile, max_points=400):
     return tuple(xs[i] for i in sel), tuple(ys[i] for i in sel)
 
 
-def _no_graduations(photo, name, reason, figures, flags, calibration):
-    """Graduations failed: field-frame reading if the calibration has such a model, else rejected."""
-    if calibration is None or not hasattr(calibration, "field_to_ri"):
+def _no_graduations(photo, name, reason, figures, flags, calibration, frame, circle, inst):
+    """Graduations failed: a field-frame reading when the calibration has a field-frame map
+    (edge position relative to the field circle -> RI), else rejected with the reason."""
+    if calibration is None or getattr(calibration, "field_map", None) is None:
         return rejected(name, photo.sha256, reason)
-    # field-frame fallback needs the edge in field coordinates: not derivable without a value axis
-    # here unless the calibration's field model exists; try it on a field-radius axis
-    return rejected(name, photo.sha256, reason)
+    n = frame.grey.shape[0]
+    # no graduation column known: the profile over the central columns (the median ignores the
+    # graduations and labels, which are thin)
+    prof = brightness_profile(frame, frame.half, frame.half - 1, 0, max(2.0, frame.radius / 40))
+    down, step = _dominant_step(prof, max(2.0, frame.radius / 40), frame.half, frame.radius)
+    if down is None or step < 0.03:
+        return rejected(name, photo.sha256, reason + "; no shadow edge for a field-frame reading either")
+    sign = 1.0 if down else -1.0
+    fpos = sign * (prof.rows - frame.half) / frame.radius  # positive toward higher values
+    order = np.argsort(fpos)
+    fpos, bright, noise, rgb_p = fpos[order], prof.brightness[order], prof.noise[order], prof.rgb[:, order]
+    inside = np.abs(fpos) < 0.95
+    fpos, bright, noise, rgb_p = fpos[inside], bright[inside], noise[inside], rgb_p[:, inside]
+    try:
+        ri_axis = np.array([calibration.field_to_ri(float(f), 0.0)[0] for f in fpos])
+    except Exception:
+        return rejected(name, photo.sha256, reason)
+    if len(ri_axis) < 20 or np.any(np.diff(ri_axis) <= 0):
+        return rejected(name, photo.sha256, reason + "; field-frame map not monotone here")
+    try:
+        analysis = _analyse(ri_axis, bright, noise, inst.liquid_ri, rgb_p)
+    except (ValueError, FloatingPointError, np.linalg.LinAlgError, RuntimeError):
+        return rejected(name, photo.sha256, reason)
+    slope = np.gradient(ri_axis, fpos)
+    edges = []
+    for e in analysis.edges:
+        f = float(np.interp(e.value, ri_axis, fpos))
+        f_unc = float(e.uncertainty / max(np.interp(f, fpos, slope), 1e-9))
+        ri, unc, eflags = calibration.field_to_ri(f, f_unc)
+        edges.append(Edge(ri=float(ri), uncertainty=float(max(unc, 1e-4)), kind=e.kind,
+                          scale_position=float("nan"), scale_uncertainty=float("nan"),
+                          contrast=float(np.clip(e.contrast, 0, 1)), field_position=f, flags=tuple(eflags)))
+    edges.sort(key=lambda e: e.ri)
+    flags = list(flags) + ["field_frame"]
+    figures = dict(figures, graduations_failure=reason)
+    del n
+    return PhotoReading(photo=name, sha256=photo.sha256, status=analysis.status, reason=None,
+                        edges=tuple(edges), light=getattr(analysis, "light", "unknown"), mode="field_frame",
+                        quality=Quality(tuple(dict.fromkeys(flags)), figures),
+                        field_circle=(circle.cx, circle.cy, circle.r))
