@@ -221,6 +221,23 @@ def test_over_the_limit_dark_up_to_the_liquid_edge(liquid_ri):
     assert ("liquid_assumed" in a.flags) == (liquid_ri is None)
 
 
+def test_faint_liquid_line_alone_is_not_over_the_limit():
+    # no stone edge in the field: bright all along, with the liquid line's faint step
+    values = scale()
+    y = make_profile(values, [], low=0.9, liquid=1.795, liquid_step=0.06, noise=0.002, seed=3)
+    a = analyse_profile(values, y, 0.002, liquid_ri=1.79)
+    assert a.status == "no_edge"
+    assert all(e.kind == "liquid" for e in a.edges)
+
+
+def test_a_step_at_the_very_end_of_the_profile_is_not_an_edge():
+    # the field boundary or the profile's first samples: no dark side seen below it
+    values = scale(1.50, 1.70, 800)
+    y = make_profile(values, [1.501], seed=2)
+    a = analyse_profile(values, y, 0.003)
+    assert stones(a) == []
+
+
 # ------------------------------------------------------------- degraded profiles
 
 

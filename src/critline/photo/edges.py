@@ -23,23 +23,37 @@ Method
 3. The terms are named: the contact liquid's edge lies near ``liquid_ri`` (or
    in 1.775-1.815 when unknown: contact liquids commonly sit around 1.78-1.81,
    from memory) and is the top step; a profile dark up to that edge is over the
-   limit; a profile with no significant, sharp upward step has no edge.
+   limit; alone and faint it is the liquid line over a field with no stone
+   edge; a profile with no significant, sharp upward step has no edge.
+4. With ``rgb`` given, the strongest edge is fitted in each colour channel: a
+   consistent displacement of the channel onsets (a coloured fringe) means
+   white light.
+
+The blur is a Gaussian with a fourth-order Gram-Charlier correction (a linear
+coefficient per edge term), so that a box-like motion blur, a disc-like defocus
+or the phone's sharpening overshoot is taken up without moving the onset and
+without passing for a second edge (see :mod:`critline.photo.edgemodel`).
 
 Sensitivity to the prism index: the Fresnel shoulder below the onset depends
-on ``N`` only weakly.  Measured on noise-free blurred edges at n = 1.544
-(sigma 0.001), fitting with N = 1.88 a profile made with N = 1.80, 1.86 or 1.95
-moves the onset by less than 2e-5, well inside the uncertainty floor (see
-:data:`FLOOR_BLUR_FRACTION`).
+on ``N`` only weakly.  Measured on nearly noise-free blurred edges (n = 1.45,
+1.544, 1.65; sigma 0.0005-0.003), fitting with N = 1.88 a profile made with N
+from 1.75 to 2.0 moves the onset by at most 1.6e-5; a profile made with the
+prism / contact liquid / stone stack (the liquid film's own reflections) reads
+the same within 1e-5.  Both are far inside the uncertainty floor.
 
 Uncertainty
 -----------
-The covariance of the onset comes from the Jacobian of the projected residual,
-scaled by the residual variance (so a wrong ``noise`` does not matter), and
-inflated for residual correlation along the profile by the AR(1) factor
-``sqrt((1 + rho) / (1 - rho))`` (the phone's noise reduction and JPEG make
-neighbouring samples correlated).  A floor for model mismatch is added in
-quadrature: a fraction of the blur width plus a fraction of the sample spacing,
-set by measurement of the coverage (see ``bench/edges_bench.py``).
+The covariance of the onset comes from a central-difference Jacobian of the
+projected residual at the solution, scaled by the residual variance (so a wrong
+``noise`` does not matter), and inflated for residual correlation along the
+profile by the AR(1) factor ``sqrt((1 + rho) / (1 - rho))`` (the phone's noise
+reduction and JPEG make neighbouring samples correlated).  Added in quadrature:
+a floor for model mismatch, :data:`FLOOR_BLUR_FRACTION` of the blur width
+(sharpening biases the onset low by up to about 0.2 sigma, measured in
+``bench/edges_bench.py``) and a part of the sample spacing (more for edges
+sharper than the sampling); and for clipped highlights, which hide the corner
+at the onset, half the stretch hidden by the clip plus the shift of the onset
+when the tone exponent is held at 1.
 """
 
 from __future__ import annotations
@@ -845,6 +859,10 @@ def analyse_profile(values, brightness, noise, *, liquid_ri=None, prism_index=1.
         if i + 1 < len(groups):
             nxt = groups[i + 1][0].position
             hi_limit = nxt - 0.4 * (nxt - group[-1].position)
+            if max(c.height for c in groups[i + 1]) < 0.3 * max(c.height for c in group):
+                # a faint step above (the liquid line) may sit near the window's top;
+                # the bright side of this edge matters more
+                hi_limit = max(hi_limit, nxt - 0.006)
         trial, group_flags = _fit_group(p, group, lo_limit, hi_limit, liquid_ri, prism_index)
         flags.update(group_flags)
         if trial is None:
