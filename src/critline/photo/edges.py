@@ -94,6 +94,8 @@ PAIR_MIN_SEPARATION = 2.5
 BIC_MORE_TERMS = 20.0
 #: Share of the stretch hidden by clipping (see _hidden_by_clipping) added to the floor.
 FLOOR_CLIPPED_FRACTION = 0.5
+#: Least stretch taken as hidden when the corner of an edge is clipped (scale units).
+CLIPPED_CORNER = 0.004
 #: Blur (scale units) above which a reading is flagged 'blurred'.
 BLURRED_SIGMA = 0.0025
 #: Contrast below which a stone edge is flagged 'low_contrast'.
@@ -574,7 +576,7 @@ class _Term:
     width: float
     figures: dict
     window: tuple[float, float]
-    clipped: bool
+    clipped: bool  # the edge's corner (the onset) lies in clipped highlights
 
 
 def _levels_at_onset(fit: em.Fit, window: em.Window, k: int):
@@ -643,6 +645,14 @@ def _terms(trial: _Trial, p: _Profile) -> list[_Term]:
         sampling = FLOOR_SPACING_FRACTION * p.spacing * min(p.spacing / fit.sigma, 2.0)
         floor = math.hypot(FLOOR_BLUR_FRACTION * fit.sigma, sampling)
         hidden = _hidden_by_clipping(fit, window, k) if clipped_near else 0.0
+        near = np.abs(window.values - n) <= 3 * fit.sigma + window.spacing
+        corner_clipped = bool(np.any(window.clipped & near))
+        if corner_clipped:
+            # the corner itself is clipped: how far the brightness would have gone on
+            # rising above the clip is not seen, so the onset may sit higher by up to
+            # a few thousandths (over-exposure by 1.5-2x hides R from 0.5-0.7 to 1,
+            # 0.003-0.008 of the Fresnel shoulder)
+            hidden = max(hidden, CLIPPED_CORNER)
         floor = math.hypot(floor, FLOOR_CLIPPED_FRACTION * hidden)
         if trial.alt_onsets is not None:
             floor = math.hypot(floor, float(trial.alt_onsets[k]) - n)
@@ -662,7 +672,7 @@ def _terms(trial: _Trial, p: _Profile) -> list[_Term]:
             "window": [float(window.values[0]), float(window.values[-1])],
         }
         out.append(_Term(n, stat, math.hypot(stat, floor), contrast, fit.sigma, figures,
-                         (float(window.values[0]), float(window.values[-1])), clipped_near))
+                         (float(window.values[0]), float(window.values[-1])), corner_clipped))
     return out
 
 
