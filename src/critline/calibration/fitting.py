@@ -13,7 +13,7 @@ Two maps are fitted on the same pairs:
   Which terms are used is decided by the evidence (see
   :func:`allowed_models` and :func:`choose_model`): an offset needs two
   references, offset and gain three, a smooth (quadratic) correction five
-  spread over the range.
+  spread over the range and the support of Akaike's criterion.
 * the **field-frame map** (the fallback when graduations are not found in a
   photo) gives ``ri = d0 + d1 f + d2 f**2 (+ d3 f**3)`` from the edge's signed
   position along the scale axis relative to the field circle, ``f`` in field
@@ -22,8 +22,8 @@ Two maps are fitted on the same pairs:
 Each fit is weighted least squares (weights ``1 / sigma**2`` of every
 reading, expressed in RI), with the covariance scaled by the Birge ratio
 ``sqrt(chi2 / dof)`` when the scatter is larger than the stated
-uncertainties (R. T. Birge, Phys. Rev. 40, 207 (1932)).  Model choice uses
-Akaike's information criterion with known variances, ``chi2 + 2 k``
+uncertainties (R. T. Birge, Phys. Rev. 40, 207 (1932)).  Whether to add the
+smooth term, and the field map's degree, follow Akaike's information criterion with known variances, ``chi2 + 2 k``
 (H. Akaike, IEEE Trans. Autom. Control 19, 716 (1974)).  Leave-one-out
 prediction residuals give an honest figure of how well the map predicts a
 stone it was not fitted on, and find a wrong (e.g. mislabelled) reference.
@@ -249,25 +249,35 @@ def _fit_scale(pairs, kind, first, step, centre=None, half_span=None) -> Polynom
 
 
 def choose_model(pairs, first: float, step: float) -> tuple[str, str]:
-    """Pick the scale-map kind by Akaike's criterion among the allowed ones.
+    """Pick the scale-map kind the references support.
 
-    Returns the kind and the reason in words, e.g.
-    ``"offset+gain: 4 references; AIC offset 212.4, offset+gain 3.1"``.
+    A printed scale's usual faults are an offset and a gain error (a
+    mis-scaled instrument), so offset and gain are both fitted as soon as three
+    references can determine them; whether the evidence also asks for the
+    smooth (quadratic) correction is decided by Akaike's criterion.  (Letting
+    the criterion drop the gain as well leaves a real 1 % gain error
+    uncorrected whenever the reader's stated uncertainties are generous.)
+
+    Returns the kind and the reason in words.
     """
     pairs = as_pairs(pairs)
     allowed = allowed_models([p.known_ri for p in pairs])
     if not allowed:
         raise CalibrationError(f"too few references: {len(pairs)} edge(s) given, at least 2 needed")
-    aic = {k: _fit_scale(pairs, k, first, step).chi2 + 2 * SCALE_MODELS[k] for k in allowed}
-    best = min(allowed, key=lambda k: (aic[k], SCALE_MODELS[k]))
-    figures = ", ".join(f"{k} {aic[k]:.1f}" for k in allowed)
     why = [f"{len(pairs)} reference edges allow {', '.join(allowed)}"]
     if len(allowed) < len(SCALE_MODELS):
         nxt = [k for k in SCALE_MODELS if k not in allowed][0]
         need = ("references in the middle half of the range" if nxt == "smooth" and len(pairs) >= 5
                 else f"{SCALE_MODEL_MIN_REFS[nxt]} references")
         why.append(f"{nxt} needs {need}")
-    why.append(f"AIC (chi2 + 2k, lower is better): {figures}")
+    best = "offset+gain" if "offset+gain" in allowed else "offset"
+    if "smooth" in allowed:
+        aic = {k: _fit_scale(pairs, k, first, step).chi2 + 2 * SCALE_MODELS[k]
+               for k in ("offset+gain", "smooth")}
+        if aic["smooth"] < aic["offset+gain"]:
+            best = "smooth"
+        why.append("AIC (chi2 + 2k, lower is better): "
+                   + ", ".join(f"{k} {v:.1f}" for k, v in aic.items()))
     return best, f"{best}: " + "; ".join(why)
 
 
