@@ -83,9 +83,7 @@ def calibrate(
 ) -> None:
     """Fit the map from scale position to RI on photos of reference stones and store it.
 
-    Bad input (too few references, duplicate photos, known RIs outside the scale, references all
-    at one end, a reference photo rejected or over the limit, a disagreeing reference) stops with
-    one line and exit code 2; nothing is written.
+    Bad input (too few references, duplicate photos, known RIs outside the scale, references all at one end, a reference photo rejected or over the limit, a disagreeing reference) stops with one line and exit code 2; nothing is written.
     """
     from critline.calibration import compare, find_previous, write_calibration
     from critline.calibration.manifest import calibrate_manifest, parse_setup
