@@ -323,12 +323,22 @@ def _stone(stone, index: int) -> str:
         f'<article class="stone" id="stone-{index}"><header><h2>{_e(stone.name)}</h2>'
         f'<span class="tag">{" · ".join(tag)}</span></header>'
         f'<div class="cols"><section><h3>derived properties</h3>{_facts(stone)}{notes_html}</section>'
-        f'<section><h3>readings against rotation</h3>{plot or "<p class=pm>No edge to plot.</p>"}'
+        f'<section><h3>readings against rotation</h3>{plot or _no_plot(stone)}'
         f'{legend}</section></div>'
         f'<h3>ranked candidates</h3>{_candidates(stone)}'
         f'<h3>marked-up photos</h3>{_thumbs(stone) or "<p class=pm>No photo gave a reading.</p>"}'
         + (f"<h3>brightness near each edge</h3>{profiles}" if profiles else "")
         + f"<h3>every reading</h3>{_readings_table(stone)}</article>")
+
+
+def _no_plot(stone) -> str:
+    over = [p for p in stone.usable if p.reading.status == "over_limit"]
+    if over:
+        liquid = sorted(e.ri for p in over for e in p.reading.edges if e.kind == "liquid")
+        where = f" near {liquid[len(liquid) // 2]:.3f}" if liquid else ""
+        return (f'<p class="pm">Over the limit in {len(over)} of {len(stone.usable)} photos: only the '
+                f'contact liquid\'s line{_e(where)} shows, the stone reads above it.</p>')
+    return '<p class="pm">No stone edge to plot.</p>'
 
 
 def _glance(result) -> str:
