@@ -773,8 +773,8 @@ def _channel_onsets(p: _Profile, rgb, window: tuple[float, float], sigma, prism_
         if not trial.valid:
             continue
         term = _terms(trial, cp)[0]
-        if term.figures["snr"] < 8 or term.contrast < 0.1:
-            continue
+        if term.figures["snr"] < 8 or term.contrast < 0.1 or term.clipped:
+            continue  # too faint, or its corner clipped: the channel cannot tell
         out[name] = term
     return out
 
