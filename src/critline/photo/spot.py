@@ -83,6 +83,8 @@ WORK_DIAMETER = 900
 PRISM_INDEX = 1.88
 #: Share of the spot's length the split must lie inside for a single-photo reading.
 SPLIT_MARGIN = 0.08
+#: Least identification margin of the graduation values (critline.photo.graduations) for a reading.
+MIN_IDENTIFICATION = 6.0
 #: Flag carried by every spot reading.
 FLAG = "spot_reading"
 
@@ -187,44 +189,81 @@ def looks_like_spot_view(frame: FieldFrame) -> SpotDecision:
     for ok, why in checks:
         if not ok:
             return SpotDecision(False, why, figures=figs)
-    # the level just beyond each end of the bright part along the axis: the spot's dim part
-    # (its values below the index, still lit by Fresnel reflection) on one side, the dim field
-    # on the other; a wholly light spot has the field on both sides
-    col = float(np.mean(cols))
-    half_w = 0.5 * (c_hi - c_lo + 1)
+    # the whole oval: the bright region grown down to a quarter of the way from the field level
+    # (the spot's dim part, its values below the index, is still lit by Fresnel reflection)
+    grown_lab, _ = label((lin > bg + 0.2 * (top - bg)) & frame.inside)
+    whole = grown_lab == np.bincount(grown_lab[comp]).argmax()
+    w_rows, w_cols = np.nonzero(whole)
+    if whole.sum() > 3 * area or w_rows.max() - w_rows.min() > 0.8 * r:
+        return SpotDecision(False, "spot outline not closed", figures=figs)
+    w_lo, w_hi = int(w_rows.min()), int(w_rows.max())
+    col = 0.5 * (w_cols.min() + w_cols.max())
+    half_w = 0.5 * (w_cols.max() - w_cols.min() + 1)
     band = slice(max(0, int(col - 0.3 * half_w)), min(n, int(col + 0.3 * half_w) + 1))
     prof = lin[:, band].mean(axis=1)
-    span = int(r_hi - r_lo + 1)
-    bright = float(np.median(prof[r_lo:r_hi + 1]))
-    look = max(3, int(0.3 * span))
-    gap = max(2, int(0.05 * span))
-    before = prof[max(0, r_lo - gap - look):max(0, r_lo - gap)]
-    after = prof[r_hi + gap + 1:r_hi + gap + 1 + look]
-    lev_before = float(np.median(before)) if len(before) else bg
-    lev_after = float(np.median(after)) if len(after) else bg
-    dim_thr = bg + 0.12 * (bright - bg)
-    dim_side = 0
-    if max(lev_before, lev_after) > dim_thr and abs(lev_before - lev_after) > 0.08 * (bright - bg):
-        dim_side = -1 if lev_before > lev_after else 1
-        figs["step_ratio"] = (bright - bg) / max(max(lev_before, lev_after) - bg, 1e-6)
-    dim_level = max(lev_before, lev_after) if dim_side else bg
-    figs.update(level_before=lev_before, level_after=lev_after, bright=bright)
-    # the whole oval along the axis: bright part plus dim part, where the profile leaves the field level
-    thr_whole = bg + 0.4 * (dim_level - bg) if dim_side else bg + 0.5 * (bright - bg)
-    lo_row, hi_row = float(r_lo), float(r_hi)
+    span = w_hi - w_lo + 1
+    if span < 8:
+        return SpotDecision(False, "bright region too small for a spot", figures=figs)
+    dim_side, split_row = 0, None
     if dim_side < 0:
-        lo_row = _walk(prof, r_lo, -1, thr_whole)
+        b_lo, b_hi = split_row, float(w_hi)
     elif dim_side > 0:
-        hi_row = _walk(prof, r_hi, +1, thr_whole)
-    if dim_side == 0:
-        lo_row, hi_row = _walk(prof, r_lo, -1, thr_whole), _walk(prof, r_hi, +1, thr_whole)
-    r0, a_ax = 0.5 * (lo_row + hi_row), 0.5 * (hi_row - lo_row)
+        b_lo, b_hi = float(w_lo), split_row
+    else:
+        b_lo, b_hi = float(w_lo), float(w_hi)
+    bright = float(np.median(prof[int(b_lo):int(b_hi) + 1]))
+    r0, a_ax = 0.5 * (w_lo + w_hi), 0.5 * span
     if a_ax > 0.4 * r:
         return SpotDecision(False, "spot too long", figures=figs)
-    figs.update(oval_rows=2 * a_ax / r)
-    blob = SpotBlob(float(r_lo), float(r_hi), col, float(half_w), dim_side, top / max(bg, 1e-6), bg, bright,
+    figs.update(oval_rows=2 * a_ax / r, bright=bright)
+    blob = SpotBlob(b_lo, b_hi, float(col), float(half_w), dim_side, top / max(bg, 1e-6), bg, bright,
                     (float(r0), float(a_ax)), figs)
     return SpotDecision(True, "compact bright oval on a dim field", blob, figs)
+
+
+def split_in_rows(prof, lo: int, hi: int, period: float):
+    """Where along the rows the spot turns from dim to bright, and which way.
+
+    Least-squares fit of ``a + b * fresnel_rise`` on the rows ``lo..hi`` (the
+    oval's interior), with the value axis taken as locally linear (``period``
+    rows per graduation of 0.01), for both directions and every split row and
+    blur on a grid, against a constant (no split).
+
+    Returns
+    -------
+    (side, row, improvement, contrast)
+        ``side`` -1 when the dim part lies toward lower rows, +1 toward higher
+        rows, 0 when no split fits clearly better than a constant;
+        ``improvement`` = rms of the constant / rms of the split fit;
+        ``contrast`` = b / (a + b), the dim part's depth below the bright part.
+    """
+    rows = np.arange(lo, hi + 1, dtype=float)
+    y = np.asarray(prof[lo:hi + 1], float)
+    if len(y) < 8 or period <= 0:
+        return 0, None, 1.0, 0.0
+    rms_const = float(np.std(y)) + 1e-9
+    per_row = 0.01 / period
+    best = (np.inf, 0, None, 0.0)
+    ref = 1.6  # the Fresnel shoulder's shape changes little with the index
+    reach = (hi - lo + 2) * per_row
+    grid = np.linspace(ref - reach, ref + reach, 2001)
+    for blur in (0.001, 0.003, 0.006):
+        table = fresnel_rise(grid, ref, blur)
+        for side in (-1, 1):
+            for k in np.arange(lo + 2, hi - 1, 0.5):
+                # side -1: values rise with the rows (dim part toward lower rows)
+                x = np.interp(ref + (rows - k) * per_row * (-side), grid, table)
+                design = np.stack([np.ones_like(x), x], axis=1)
+                coef, *_ = np.linalg.lstsq(design, y, rcond=None)
+                if coef[1] <= 0:
+                    continue
+                rms = float(np.sqrt(np.mean((design @ coef - y) ** 2)))
+                if rms < best[0]:
+                    best = (rms, side, float(k), float(coef[1] / max(coef[0] + coef[1], 1e-9)))
+    rms, side, k, contrast = best
+    if k is None:
+        return 0, None, 1.0, 0.0
+    return side, k, rms_const / max(rms, 1e-9), contrast
 
 
 def _fit_ellipse(rows, cols):
@@ -289,13 +328,13 @@ def fit_split(values, brightness, first_guess, reach=0.02):
     return best
 
 
-def _graduations(frame: FieldFrame, inst: Instrument, values_down):
+def _column(frame: FieldFrame, inst: Instrument):
+    """Relative darkness of the frame and the graduation column (as the flat reader finds it)."""
     dark = normalised(frame.grey, frame.inside, frame.radius)
     col_abs = find_column(normalised(frame.grey, frame.inside, frame.radius, relative=False),
                           frame.inside, frame.radius, inst.count)
     col_rel = find_column(dark, frame.inside, frame.radius, inst.count)
-    col = col_abs if col_abs.periodicity >= col_rel.periodicity else col_rel
-    return find_graduations(frame, inst, dark, col, values_down)
+    return dark, (col_abs if col_abs.periodicity >= col_rel.periodicity else col_rel)
 
 
 def _reduce_for(size: float, want: float) -> int:
@@ -311,8 +350,38 @@ def spot_frame(photo: LoadedPhoto, circle) -> FieldFrame:
     rgb = decode(photo, rw)
     wcx, wcy, wr = (circle.cx - (rw - 1) / 2) / rw, (circle.cy - (rw - 1) / 2) / rw, circle.r / rw
     grey_w = (0.299 * rgb[..., 0] + 0.587 * rgb[..., 1] + 0.114 * rgb[..., 2]).astype(np.float32)
-    axis = axis_angle(grey_w, wcx, wcy, wr)
+    axis = axis_angle(_paint_over_bright_blob(grey_w, wcx, wcy, wr), wcx, wcy, wr)
     return make_frame(rgb, wcx, wcy, wr, axis.angle, rw)
+
+
+def _paint_over_bright_blob(grey: np.ndarray, cx: float, cy: float, r: float) -> np.ndarray:
+    """``grey`` with its brightest compact region inside the field painted in the field's level.
+
+    On a dim field the spot's outline has more gradient energy than the faint graduations and
+    would set the axis direction; without it the graduations do.
+    """
+    h, w = grey.shape
+    yy, xx = np.ogrid[0:h, 0:w]
+    inside = ((xx - cx) ** 2 + (yy - cy) ** 2) < (0.95 * r) ** 2
+    if inside.sum() < 100:
+        return grey
+    sm = cv2.GaussianBlur(grey, (0, 0), max(1.0, 0.01 * r))
+    level = float(np.median(sm[inside]))
+    top = float(np.percentile(sm[inside], 99.99))
+    if top <= level:
+        return grey
+    lab, count = label((sm > level + 0.25 * (top - level)) & inside)
+    if count == 0:
+        return grey
+    sizes = np.bincount(lab.ravel())
+    sizes[0] = 0
+    ys, xs = np.nonzero(lab == int(np.argmax(sizes)))
+    extent = max(xs.max() - xs.min(), ys.max() - ys.min()) + 1
+    if extent > 0.8 * r:
+        return grey  # not a spot; leave the image as it is
+    out = grey.copy()
+    cv2.circle(out, (int(round(xs.mean())), int(round(ys.mean()))), int(0.8 * extent + 0.03 * r + 2), level, -1)
+    return out
 
 
 def read_spot_view(photo: LoadedPhoto, circle, instrument: Instrument | None = None, calibration=None,
@@ -364,53 +433,54 @@ def read_spot(frame: FieldFrame, blob: SpotBlob, instrument: Instrument | None =
     """
     inst = instrument or DEFAULT
     n = frame.grey.shape[0]
-    values_down = None if blob.dim_side == 0 else blob.dim_side < 0
     try:
-        grads, frame2 = _graduations(frame, inst, values_down)
+        dark, col = _column(frame, inst)
+    except GraduationsNotFound as exc:
+        raise PhotoRejected(f"spot view: {exc}") from None
+    band = slice(max(0, int(blob.col - 0.3 * blob.half_width)), min(n, int(blob.col + 0.3 * blob.half_width) + 1))
+    prof0 = _clean_linear(frame)[:, band].mean(axis=1)
+    r0, a_ax = blob.oval
+    edge = max(2, int(0.2 * a_ax))
+    lo, hi = int(math.ceil(r0 - a_ax)) + edge, int(r0 + a_ax) - edge
+    side, k, improvement, contrast = split_in_rows(prof0, lo, hi, col.period)
+    # a split needs a totally reflected part well above the dim field (a wholly dark spot is
+    # only a little brighter than the field, with no plateau)
+    has_split = (side != 0 and improvement >= 2.0 and contrast >= 0.35 and lo + 1 < k < hi - 1
+                 and blob.bright >= 4.0 * blob.background)
+    try:
+        grads, frame2 = find_graduations(frame, inst, dark, col, (side < 0) if has_split else None)
     except GraduationsNotFound as exc:
         raise PhotoRejected(f"spot view: {exc}") from None
     if abs(((frame2.angle - frame.angle) + np.pi) % (2 * np.pi) - np.pi) > 1.0:
         blob = _flip_blob(blob, n)
+        r0 = n - 1 - r0
+        lo, hi = n - 1 - hi, n - 1 - lo
+        k = None if k is None else n - 1 - k
+    margin = float(grads.figures.get("identification_margin", 0.0))
+    if "identification_weak" in grads.flags or "pattern_weak" in grads.flags or margin < MIN_IDENTIFICATION:
+        # a wrong graduation identity shifts a reading by whole graduations or tenths: no
+        # reading rather than that (a spot view shows the scale dimly, away from the spot)
+        raise PhotoRejected(f"spot view: graduation values uncertain (identification margin {margin:.1f})")
     flags = [FLAG, *grads.flags]
     figures = dict(blob.figures)
-    figures.update({f"graduations_{k}": v for k, v in grads.figures.items() if isinstance(v, (int, float))})
-    lin = _clean_linear(frame2)
+    figures.update({k_: v for k_, v in grads.figures.items() if isinstance(v, (int, float))})
+    figures.update(split_improvement=float(improvement), split_contrast=float(contrast))
     band = slice(max(0, int(blob.col - 0.3 * blob.half_width)), min(n, int(blob.col + 0.3 * blob.half_width) + 1))
-    prof = lin[:, band].mean(axis=1)
+    prof = _clean_linear(frame2)[:, band].mean(axis=1)
     rows = np.arange(n, dtype=float)
-    idx = grads.index_of(rows)
-    values = inst.first + inst.step * idx
-    span = blob.row_hi - blob.row_lo + 1
+    values = inst.first + inst.step * grads.index_of(rows)
     bright_lvl, bg = blob.bright, blob.background
     ok_v = np.isfinite(values)
-    r0, a_ax = blob.oval
-    if blob.dim_side == 0 or "direction_undetermined" in flags or ok_v.sum() < 10:
+    if not has_split or "direction_undetermined" in flags or ok_v.sum() < 10:
         return _no_split(name, sha256, blob, inst, values, rows, flags, figures, field_circle,
-                         "spot wholly light (no split seen): the index lies below the spot")
-    # in frame2 values increase down the rows, so the dim part lies above the bright part
-    split_guess = float(np.interp(blob.row_lo, rows[ok_v], values[ok_v]))
-    v_dim_end = float(np.interp(r0 - 0.85 * a_ax, rows[ok_v], values[ok_v]))
-    hi_row = blob.row_lo + 0.6 * span
-    sel = ok_v & (values >= max(split_guess - 0.015, v_dim_end)) & (rows <= hi_row)
+                         "no split seen in the spot (wholly light or wholly dark): move the head until "
+                         "it is half dark", keep=True)
+    # in frame2 values increase down the rows, so the dim part lies above the split
+    split_guess = float(np.interp(k, rows[ok_v], values[ok_v]))
+    sel = ok_v & (values >= split_guess - 0.015) & (rows >= lo) & (rows <= hi)
     if sel.sum() < 6:
         return _no_split(name, sha256, blob, inst, values, rows, flags, figures, field_circle,
-                         "spot too small to measure its split")
-    if blob.figures.get("step_ratio", np.inf) < 2.2:
-        # no clear step from a dim part up to a totally reflected part: a wholly dark spot that
-        # brightens along its length (Fresnel), not a split
-        return _no_split(name, sha256, blob, inst, values, rows, flags, figures, field_circle,
-                         "spot wholly dark (no totally reflected part): the index lies above the spot",
-                         keep=True)
-    # the bright part is totally reflected: flat, unlike the Fresnel slope of a wholly dim spot
-    inner_b = prof[int(blob.row_lo + 0.3 * span):int(blob.row_hi - 0.1 * span) + 1]
-    if len(inner_b) >= 4:
-        halves = np.array_split(inner_b, 2)
-        tilt = abs(float(np.median(halves[1]) - np.median(halves[0]))) / max(bright_lvl, 1e-6)
-        figures["bright_part_slope"] = tilt
-        if tilt > 0.15:
-            return _no_split(name, sha256, blob, inst, values, rows, flags, figures, field_circle,
-                             "no totally reflected part in the spot (wholly dark spot?): the index lies above it",
-                             keep=True)
+                         "spot too small to measure its split", keep=True)
     ri_fit, rms, blur = fit_split(values[sel], prof[sel], split_guess)
     split_row = float(np.interp(ri_fit, values[ok_v], rows[ok_v]))
     frac = float(np.clip((split_row - (r0 - a_ax)) / max(2 * a_ax, 1e-6), 0, 1))
@@ -432,7 +502,13 @@ def read_spot(frame: FieldFrame, blob: SpotBlob, instrument: Instrument | None =
         unc = max(unc, SPOT_PRECISION)
     else:
         ri, unc = inst.value(scale_pos), scale_unc * inst.step
-    if inst.liquid_ri is not None and ri >= inst.liquid_ri - SPOT_PRECISION:
+    liquid = inst.liquid_ri
+    if liquid is not None and ri > liquid + 2 * SPOT_PRECISION:
+        # the split of a spot cannot lie above the contact liquid's index (total reflection at
+        # the liquid comes first): the graduation values must be wrong
+        raise PhotoRejected(f"spot view: split read at {ri:.3f}, above the contact liquid ({liquid:.2f}); "
+                            "graduation values doubtful")
+    if liquid is not None and ri >= liquid - SPOT_PRECISION:
         flags.append("near_liquid")
     edge = Edge(ri=round(float(ri), 3), uncertainty=float(unc), kind="spot", scale_position=float(scale_pos),
                 scale_uncertainty=float(scale_unc), contrast=float(np.clip(1 - bg / bright_lvl, 0, 1)),
