@@ -52,6 +52,9 @@ class Profile:
     columns: int
     tilt: float
     figures: dict = field(default_factory=dict)
+    #: median profiles of 8 blocks of columns (rows as ``rows``), to tell a straight shadow edge
+    #: from a curved vignetting boundary
+    blocks: np.ndarray | None = None
 
 
 def nan_median_rows(a: np.ndarray) -> np.ndarray:
@@ -78,7 +81,8 @@ def _fill(prof: np.ndarray) -> np.ndarray:
     return np.interp(np.arange(len(prof)), idx, prof[idx])
 
 
-def _edge_tilt(lum: np.ndarray, cols: np.ndarray, ok: np.ndarray, period: float) -> tuple[float, float]:
+def _edge_tilt(lum: np.ndarray, cols: np.ndarray, ok: np.ndarray, period: float,
+               interior: np.ndarray | None = None) -> tuple[float, float]:
     """Slope (rows per column) of the main brightness step across the columns.
 
     The gradient of each block of columns' median profile is aligned with
@@ -105,6 +109,8 @@ def _edge_tilt(lum: np.ndarray, cols: np.ndarray, ok: np.ndarray, period: float)
     margin = int(3 * sig)
     d_ref[: vi.min() + margin] = 0
     d_ref[vi.max() - margin:] = 0
+    if interior is not None:  # the field stop's rim (falloff, crescents) is not the shadow edge
+        d_ref[~interior] = 0
     i0 = int(np.argmax(np.abs(d_ref)))
     if d_ref[i0] == 0:
         return 0.0, 0.0
@@ -179,7 +185,7 @@ def brightness_profile(frame: FieldFrame, v_lo: int, v_hi: int, exclude: int, pe
     lum = (0.2126 * lin[..., 0] + 0.7152 * lin[..., 1] + 0.0722 * lin[..., 2]).astype(np.float32)
     ok = frame.inside[:, cand] & (np.abs(v[cand])[None, :] < 0.9 * chord[:, None])
     v_ref = (v_lo + v_hi) / 2 - half
-    tilt, edge_scatter = _edge_tilt(lum, v[cand], ok, period)
+    tilt, edge_scatter = _edge_tilt(lum, v[cand], ok, period, np.abs(rows) < 0.85 * frame.radius)
     if tilt != 0.0:
         shift = tilt * (v[cand] - v_ref)  # rows to add so the edge sits where it does at v_ref
         grid_r = (np.arange(n)[:, None] + shift[None, :]).astype(np.float32)
@@ -204,5 +210,8 @@ def brightness_profile(frame: FieldFrame, v_lo: int, v_hi: int, exclude: int, pe
             rgb[c, sel] = nan_median_rows(np.where(ok[sel], lin[sel, :, c], np.nan))
     noise = 1.2533 * 1.4826 * mad / np.sqrt(np.maximum(count, 1))
     noise = np.maximum(noise, 1e-4)
+    blocks = np.stack([nan_median_rows(sub[:, b]) for b in np.array_split(np.arange(sub.shape[1]), 8)
+                       if len(b)]) if len(sel) else None
     return Profile(sel.astype(float), med[sel], noise[sel], rgb[:, sel], int(len(cand)), tilt,
-                   {"profile_columns": int(len(cand)), "edge_tilt": tilt, "edge_row_scatter": edge_scatter})
+                   {"profile_columns": int(len(cand)), "edge_tilt": tilt, "edge_row_scatter": edge_scatter},
+                   blocks)

@@ -71,7 +71,14 @@ class _NoEdges:
 
 
 def _dominant_step(profile: Profile, period: float, half: int, radius: float, lo=None, hi=None):
-    """Sign and relative size of the strongest brightness step along the rows (within lo..hi)."""
+    """Sign and relative size of the main brightness step along the rows (within lo..hi).
+
+    Candidates are the strongest rise and the strongest fall of the smoothed
+    profile inside 0.85 of the field radius.  A shadow edge runs straight
+    across the whole field; a vignetting crescent's boundary is curved and
+    partial: each candidate is weighted by the share of column blocks that
+    show the same step at the same row (within two graduation spacings).
+    """
     rows, b = profile.rows, profile.brightness
     if len(rows) < 20:
         return None, 0.0
@@ -80,20 +87,49 @@ def _dominant_step(profile: Profile, period: float, half: int, radius: float, lo
     bi = np.interp(grid, rows, b).astype(np.float32)
     sm = cv2.GaussianBlur(bi.reshape(-1, 1), (1, 0), sigmaX=0, sigmaY=sig).ravel()
     d = np.gradient(sm)
-    inner = np.abs(grid - half) < 0.93 * radius
+    inner = np.abs(grid - half) < 0.85 * radius
     if lo is not None:
         inner &= (grid >= lo) & (grid <= hi)
     d = np.where(inner, d, 0)
-    i = int(np.argmax(np.abs(d)))
-    if d[i] == 0:
-        return None, 0.0
-    # size of the step: smoothed levels a few sigma either side (as far as the profile goes)
-    w = int(min(3 * sig, i, len(sm) - 1 - i))
     top = float(np.nanpercentile(bi[inner], 95)) if inner.any() else float(np.max(bi))
-    if w < 1 or top <= 0:
+    if top <= 0:
         return None, 0.0
-    rel = (sm[i + w] - sm[i - w]) / top
-    return bool(rel > 0), float(abs(rel))
+    best = None
+    for i in (int(np.argmax(d)), int(np.argmin(d))):
+        if d[i] == 0:
+            continue
+        w = int(min(3 * sig, i, len(sm) - 1 - i))
+        if w < 1:
+            continue
+        rel = (sm[i + w] - sm[i - w]) / top
+        agree = _block_agreement(profile, grid[i], np.sign(d[i]), sig, period)
+        score = abs(rel) * (0.25 + agree)
+        if best is None or score > best[0]:
+            best = (score, rel, agree)
+    if best is None:
+        return None, 0.0
+    return bool(best[1] > 0), float(abs(best[1]))
+
+
+def _block_agreement(profile: Profile, row: float, sign: float, sig: float, period: float) -> float:
+    """Share of column blocks whose own steepest step of this sign lies within 2 spacings of row."""
+    if profile.blocks is None or len(profile.blocks) == 0:
+        return 0.5
+    rows = profile.rows
+    win = (rows > row - 6 * sig) & (rows < row + 6 * sig)
+    if win.sum() < 5:
+        return 0.5
+    hits = 0
+    for blk in profile.blocks:
+        seg = blk[win]
+        if not np.isfinite(seg).all():
+            continue
+        g = np.gradient(cv2.GaussianBlur(seg.astype(np.float32).reshape(-1, 1), (1, 0), sigmaX=0,
+                                         sigmaY=sig).ravel())
+        j = int(np.argmax(sign * g))
+        if sign * g[j] > 0 and abs(rows[win][j] - row) < max(2 * period, 3.0):
+            hits += 1
+    return hits / len(profile.blocks)
 
 
 def read_photo(path, instrument: Instrument | None = None, calibration=None, overlay_dir=None) -> PhotoReading:
