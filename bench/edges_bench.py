@@ -17,6 +17,7 @@ the separation at which two edges are resolved, and the time per call.
 from __future__ import annotations
 
 import argparse
+import os
 import statistics
 import time
 
@@ -149,7 +150,8 @@ def separation(trials):
 
 
 def timing(repeats):
-    print(f"\n== time per call, 2000-sample profile (median of {repeats}) ==")
+    print(f"\n== time per call, 2000-sample profile (median of {repeats}; wall clock and CPU"
+          " time of this process, which differ when other work shares the machine) ==")
     values = np.linspace(1.30, 1.80, 2000)
     cases = {
         "one edge": render(values, [1.544], 0.001, seed=1),
@@ -158,20 +160,19 @@ def timing(repeats):
         "over the limit": render(values, [1.79], 0.001, seed=1),
         "no edge": 0.8 + np.random.default_rng(1).normal(0, 0.002, values.size),
     }
-    for name, y in cases.items():
-        times = []
-        for _ in range(repeats):
-            t0 = time.perf_counter()
-            analyse_profile(values, y, 0.002)
-            times.append(time.perf_counter() - t0)
-        print(f"{name:20s} {statistics.median(times) * 1e3:7.1f} ms")
     rgb = np.stack([render(values, [1.544], 0.001, seed=s) for s in (1, 2, 3)])
-    times = []
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        analyse_profile(values, rgb.mean(axis=0), 0.002, rgb=rgb)
-        times.append(time.perf_counter() - t0)
-    print(f"{'one edge + rgb':20s} {statistics.median(times) * 1e3:7.1f} ms")
+    cases["one edge + rgb"] = (rgb.mean(axis=0), rgb)
+    for name, case in cases.items():
+        y, colours = case if isinstance(case, tuple) else (case, None)
+        wall, cpu = [], []
+        for _ in range(repeats):
+            t0, c0 = time.perf_counter(), time.process_time()
+            analyse_profile(values, y, 0.002, rgb=colours)
+            wall.append(time.perf_counter() - t0)
+            cpu.append(time.process_time() - c0)
+        print(f"{name:20s} wall {statistics.median(wall) * 1e3:7.1f} ms   "
+              f"cpu {statistics.median(cpu) * 1e3:7.1f} ms")
+    print(f"load average during the run: {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores")
 
 
 def main():

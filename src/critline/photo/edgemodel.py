@@ -450,7 +450,7 @@ def fit(window: Window, count, theta0, lower, upper, *, max_nfev=60):
     theta0 = np.clip(np.asarray(theta0, float), lower + 1e-12, upper - 1e-12)
     problem = _Problem(window, count)
     res = least_squares(problem.fun, theta0, jac=problem.jac, bounds=(lower, upper),
-                        x_scale="jac", method="trf", max_nfev=max_nfev, ftol=1e-7, xtol=1e-7)
+                        x_scale="jac", method="trf", max_nfev=max_nfev, ftol=1e-6, xtol=1e-6)
     theta = res.x
     problem._update(theta)
     coef = problem.coef

@@ -904,7 +904,11 @@ def analyse_profile(values, brightness, noise, *, liquid_ri=None, prism_index=1.
         rgb = np.asarray(rgb, dtype=float)
         if rgb.ndim == 2 and rgb.shape[0] == 3 and rgb.shape[1] == np.asarray(values).size:
             main = max(edges, key=lambda e: e.contrast)
-            window = tuple(main.figures["window"])
+            lo, hi = main.figures["window"]
+            # a narrower window than the luminance fit's: only the channels' onsets
+            # are compared (a coloured fringe spans up to about 0.02)
+            window = (max(lo, main.value - max(0.02, 10 * main.width)),
+                      min(hi, main.value + max(0.012, 6 * main.width)))
             channels = _channel_onsets(p, rgb, window, main.width, prism_index)
             light, light_figures = _light(channels)
             figures.update(light_figures)
