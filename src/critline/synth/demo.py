@@ -121,4 +121,32 @@ def write_demo(folder, overwrite: bool = False) -> list[Path]:
     w.writerow(["photo", "known_ri", "material"])
     w.writerows(rows)
     atomic_write_text(folder / "references" / "manifest.csv", buf.getvalue(), overwrite=overwrite)
+    written += write_cabochons(folder, overwrite=overwrite)
+    return written
+
+
+def write_cabochons(folder, overwrite: bool = False) -> list[Path]:
+    """Render the demo's cabochons: spot views, one photo per head position (own seeds)."""
+    from critline.synth.spot import write_spot_series
+
+    folder = Path(folder)
+    demo = load_demo()
+    instrument = demo_instrument()
+    written: list[Path] = []
+    for k, cab in enumerate(demo.get("cabochon", [])):
+        rng = np.random.default_rng([DEMO_SEED, 0x5B07, k])
+        shots = [_phone(rng) for _ in cab["centres"]]
+        for shot in shots:  # small frames: the spot photos need little
+            shot["width"], shot["height"] = frame_size(0.7, 4 / 3, portrait=shot["height"] > shot["width"])
+            shot["surround"] = 0.003
+            shot["dust"] = 0
+        base = dataclasses.replace(
+            _base(demo, instrument, rng), view="spot", stone_ris=(float(cab["ri"]),), liquid_line=0.0,
+            spot_length=float(cab["spot_length"]), spot_aspect=0.8, spot_v=-0.05, spot_surround=0.05,
+            spot_rim=0.2, spot_softness=0.006)
+        facts = {key: cab[key] for key in ("folder", "label", "material", "ri", "source")}
+        facts["scenario"] = demo["scenario"]
+        written += write_spot_series(folder / "parcel" / cab["folder"], base, DEMO_SEED + 5000 + 10 * k,
+                                     cab["centres"], vary=lambda i, shots=shots: shots[i], stone=facts,
+                                     overwrite=overwrite)
     return written
