@@ -16,22 +16,29 @@ contrast, or uneven brightness outside the oval is *not* a spot view.
 
 Method
 ------
-1. In the field frame of :mod:`critline.photo.frame` (axis along the rows)
-   the printed reticle is removed by a grey closing along the axis
-   (thin dark lines across the axis vanish, broad steps stay), the image is
-   taken to linear light and the field's background level is its median.
+1. The field is resampled with the scale axis along the rows
+   (:mod:`critline.photo.frame`); the axis direction is taken with the
+   brightest compact region painted over, because on a dim field the spot's
+   outline would outweigh the faint graduations.  The printed reticle is
+   removed by a grey closing along the axis, the image taken to linear
+   light, and the field's level is its median.
 2. The spot is the largest bright connected region (above half-way from the
-   background to the brightest level); it must be compact, inside the field,
-   small, and the rest of the field even.
-3. The spot's dim part (its scale values below the index) lies on one side
-   along the axis: that side is the low-value side, which orients the scale
-   for :func:`critline.photo.graduations.find_graduations`.
-4. Along the axis through the spot the brightness rises from the dim part to
-   the bright part at the split; the split's value is fitted with the
-   table's Fresnel reflectance (Fresnel equations, :mod:`critline.optics`)
-   blurred by a Gaussian, by least squares over a grid of indices and blur
-   widths, on the value axis given by the graduations.  That is where a spot
-   centred there would be half dark, half light.
+   field level to the brightest level); it must be compact, small, away from
+   the field's rim, alone, on an even field, at least twice as bright as the
+   field.  The whole oval (its dim part included) is that region grown down
+   to a fifth of the way.
+3. Along the axis through the oval's middle the table's Fresnel reflectance
+   (Fresnel equations, :mod:`critline.optics`; 1 above the index) blurred by
+   a Gaussian is fitted by least squares for both directions, every split
+   row and a few blur widths, with the value axis locally linear (the
+   graduation period); it must beat a constant clearly.  The dim side is the
+   low-value side, which orients the scale for
+   :func:`critline.photo.graduations.find_graduations`.
+4. On the value axis given by the graduations the fit is repeated over a grid
+   of indices near the split: that is the reading, where a spot centred there
+   would be half dark, half light.  No reading (``no_edge``) when no split
+   is seen (a wholly light or wholly dark spot) or it lies at the spot's very
+   end; ``rejected`` when the graduations or their values are doubtful.
 5. A series of photos of one stone (the head moving):
    :func:`read_spot_series` interpolates the spot-centre position at which
    the dark fraction is one half.
@@ -407,7 +414,7 @@ def read_spot_view(photo: LoadedPhoto, circle, instrument: Instrument | None = N
     try:
         frame = spot_frame(photo, circle)
         decision = looks_like_spot_view(frame)
-    except (cv2.error, ValueError, MemoryError) as exc:
+    except (cv2.error, ValueError, IndexError, ZeroDivisionError, MemoryError) as exc:
         return rejected(name, photo.sha256, f"spot view check failed ({type(exc).__name__})") if force else None
     if not decision.is_spot:
         return rejected(name, photo.sha256, f"no spot found: {decision.reason}") if force else None
@@ -416,7 +423,8 @@ def read_spot_view(photo: LoadedPhoto, circle, instrument: Instrument | None = N
                          field_circle=(circle.cx, circle.cy, circle.r))
     except PhotoRejected as exc:
         return rejected(name, photo.sha256, str(exc))
-    except (cv2.error, ValueError, FloatingPointError, np.linalg.LinAlgError) as exc:
+    except (cv2.error, ValueError, IndexError, ZeroDivisionError, FloatingPointError,
+            np.linalg.LinAlgError) as exc:
         return rejected(name, photo.sha256, f"spot view could not be analysed ({type(exc).__name__})")
 
 
