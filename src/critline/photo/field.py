@@ -197,7 +197,7 @@ def find_field(grey: np.ndarray, reduce: int = 1, seed: int = 0) -> FieldResult:
         otsu = float(threshold_otsu(g))
     except ValueError:
         return FieldResult(None, "blank frame: no contrast")
-    levels = sorted({otsu, lo + 0.5 * (otsu - lo), lo + 0.25 * (otsu - lo), lo + 0.12 * (hi - lo)})
+    levels = sorted({otsu, lo + 0.25 * (otsu - lo)})
     tol = max(1.5, short / 200)
     gx = cv2.Sobel(g, cv2.CV_32F, 1, 0, ksize=3) / 8
     gy = cv2.Sobel(g, cv2.CV_32F, 0, 1, ksize=3) / 8
@@ -216,9 +216,9 @@ def find_field(grey: np.ndarray, reduce: int = 1, seed: int = 0) -> FieldResult:
         point_sets.append((-1.0, np.stack([ex + 2, ey + 2], axis=1).astype(np.float64)))
     best = None
     for level, pts in point_sets:
-        if len(pts) > 2500:  # thin out evenly, keeps RANSAC fast
-            pts = pts[:: len(pts) // 2500 + 1]
-        fit = ransac_circle(pts, tol, (0.09 * short, 0.62 * short), trials=500, seed=seed)
+        if len(pts) > 1500:  # thin out evenly, keeps RANSAC fast
+            pts = pts[:: len(pts) // 1500 + 1]
+        fit = ransac_circle(pts, tol, (0.09 * short, 0.62 * short), trials=400, seed=seed)
         if fit is None:
             continue
         cx, cy, r, _ = fit

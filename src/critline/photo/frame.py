@@ -165,11 +165,9 @@ def make_frame(rgb: np.ndarray, cx: float, cy: float, r: float, angle: float, re
                             borderMode=cv2.BORDER_CONSTANT, borderValue=(0, 0, 0))
     if warped.dtype != np.float32:
         warped = warped.astype(np.float32) * np.float32(1.0 / (65535.0 if rgb.dtype == np.uint16 else 255.0))
-    jj, ii = np.meshgrid(np.arange(n, dtype=np.float32), np.arange(n, dtype=np.float32))
-    xs = m[0, 0] * jj + m[0, 1] * ii + m[0, 2]
-    ys = m[1, 0] * jj + m[1, 1] * ii + m[1, 2]
     h, w = rgb.shape[:2]
-    valid = (xs >= 0) & (xs <= w - 1) & (ys >= 0) & (ys <= h - 1)
+    valid = cv2.warpAffine(np.ones((h, w), np.uint8), m, (n, n), flags=cv2.INTER_NEAREST | cv2.WARP_INVERSE_MAP,
+                           borderMode=cv2.BORDER_CONSTANT, borderValue=0) > 0
     grey = (0.299 * warped[..., 0] + 0.587 * warped[..., 1] + 0.114 * warped[..., 2]).astype(np.float32)
     ii, jj = np.ogrid[0:n, 0:n]
     inside = valid & (((ii - half) ** 2 + (jj - half) ** 2) < (0.97 * r) ** 2)

@@ -113,12 +113,12 @@ class Graduations:
         return np.sqrt(np.clip(var_row, 0, None)) / np.abs(slope)
 
 
-def normalised(grey: np.ndarray, inside: np.ndarray, radius: float, relative: bool = True) -> np.ndarray:
+def normalised(grey: np.ndarray, inside: np.ndarray, radius: float, relative: bool | str = True):
     """Darkness against the local mean (dark lines positive), 0 outside the field.
 
     ``relative``: 1 - grey / local mean (same depth for a line in the bright and
     the dark part); else local mean - grey (the bright part, where lines are
-    seen best, weighs most).
+    seen best, weighs most); ``"both"`` returns the pair (relative, absolute).
     """
     sigma = max(3.0, radius / 40)
     w = inside.astype(np.float32)
@@ -129,6 +129,12 @@ def normalised(grey: np.ndarray, inside: np.ndarray, radius: float, relative: bo
     num = cv2.GaussianBlur(cv2.resize(grey * w, small, interpolation=cv2.INTER_AREA), (0, 0), sigma / f)
     den = cv2.GaussianBlur(cv2.resize(w, small, interpolation=cv2.INTER_AREA), (0, 0), sigma / f)
     local = cv2.resize(num / np.maximum(den, 1e-3), (n1, n0), interpolation=cv2.INTER_LINEAR)
+    if relative == "both":
+        rel = (1.0 - grey / np.maximum(local, 1e-3)).astype(np.float32)
+        ab = (local - grey).astype(np.float32)
+        rel[~inside] = 0.0
+        ab[~inside] = 0.0
+        return rel, ab
     out = 1.0 - grey / np.maximum(local, 1e-3) if relative else local - grey
     out[~inside] = 0.0
     return out.astype(np.float32)

@@ -132,8 +132,8 @@ def _edge_tilt(lum: np.ndarray, cols: np.ndarray, ok: np.ndarray, period: float,
         if seg_ok.mean() < 0.95:
             continue
         db = _smooth_gradient(_fill(pb), sig)
-        cc = np.array([np.dot(tmpl, db[lo + sh:hi + sh] - db[lo + sh:hi + sh].mean())
-                       for sh in range(-max_shift, max_shift + 1)])
+        # tmpl has zero mean, so the segment's own mean does not change the correlation
+        cc = np.correlate(db[lo - max_shift:hi + max_shift], tmpl, mode="valid")
         j = int(np.argmax(cc))
         if not (0 < j < len(cc) - 1):
             continue

@@ -202,12 +202,11 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
     flags: list[str] = []
     if circle.clipped:
         flags.append("field_clipped")
-    dark = normalised(frame.grey, frame.inside, frame.radius)
+    dark, dark_abs = normalised(frame.grey, frame.inside, frame.radius, relative="both")
     try:
         # absolute darkness favours the bright part (best signal to noise), relative darkness
         # counts the lines in the dark part as much: keep the more periodic answer
-        col_abs = find_column(normalised(frame.grey, frame.inside, frame.radius, relative=False),
-                              frame.inside, frame.radius, inst.count)
+        col_abs = find_column(dark_abs, frame.inside, frame.radius, inst.count)
         col_rel = find_column(dark, frame.inside, frame.radius, inst.count)
         col = col_abs if col_abs.periodicity >= col_rel.periodicity else col_rel
     except GraduationsNotFound as exc:
