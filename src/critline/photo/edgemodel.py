@@ -14,7 +14,11 @@ the window (``tau`` runs from -1 to 1).  The observed profile is ``B`` convolved
 with a Gaussian of width ``sigma`` (optics, focus, the phone's processing), in
 scale units.
 
-The model is linear in ``(low, p, a_1..a_K, q)`` and non-linear in
+The blur also carries one fourth-order Gram-Charlier term per edge, with a free
+linear coefficient ``c_k`` (see :func:`design`), so that a non-Gaussian blur
+(defocus disc, motion box, sharpening) does not move the onset.
+
+The model is linear in ``(low, p, a_1..a_K, q, c_1..c_K)`` and non-linear in
 ``(n_1..n_K, sigma, g)``.  The fit is a separable (variable projection) least
 squares: for given non-linear parameters the linear ones are solved exactly by
 weighted linear least squares, and :func:`scipy.optimize.least_squares` works on
@@ -25,9 +29,10 @@ problem is the non-linear block of the full covariance, so the onset uncertainty
 already accounts for the unknown brightness levels and trends.
 
 The convolution runs by FFT on a uniform grid, fixed for one fit so that the
-model is a smooth function of its parameters, with a step of at most a quarter of
-the smallest blur allowed in that fit so that the square-root cusp of ``R`` at the
-onset is resolved; the grid is padded by four blur widths so that the periodic
+model is a smooth function of its parameters, with a step of a third of the
+smallest blur allowed in that fit (never coarser than the sample spacing, never
+finer than a sixth of it) so that the square-root cusp of ``R`` at the onset is
+resolved; the grid is padded by four blur widths so that the periodic
 wrap of the FFT never reaches a sample.  Blurred values are interpolated at the
 samples.
 """
@@ -257,11 +262,6 @@ def unpack(theta, count):
     return onsets, float(np.exp(theta[count])), float(np.exp(theta[count + 1]))
 
 
-def residuals(theta, window: Window, count):
-    """Projected residual (variable projection) for the non-linear parameters ``theta``."""
-    return _Problem(window, count).fun(theta)
-
-
 class _Problem:
     """Residual and approximate Jacobian of the separable fit, sharing one FFT per step.
 
@@ -430,14 +430,6 @@ class Fit:
     def curve(self, window: Window, at):
         onsets, sigma, g = unpack(self.theta, self.count)
         return design(window, onsets, sigma, g, at=at) @ self.coef
-
-    def level(self, window: Window, at, edges="all"):
-        """Unblurred model level at ``at`` with all terms dark (edges='none') or bright ('all')."""
-        tau = (np.asarray(at, float) - window.centre) / window.half_span
-        lin = self.coef[0] + self.coef[1] * tau
-        if edges == "none":
-            return lin
-        return lin + self.amplitudes.sum() + self.count * self.trend * tau
 
     @property
     def trend(self):
