@@ -48,3 +48,25 @@ def test_sha256_of_file(tmp_path):
     p = tmp_path / "e"
     p.write_bytes(b"")
     assert file_sha256(p) == "e3b0c44298fc1c149afbf4c8996fb92427ae41e4649b934ca495991b7852b855"
+
+
+def test_a_changed_reader_reads_again(tmp_path):
+    import importlib
+    import sys
+
+    from critline.batch.cache import reader_fingerprint
+
+    (tmp_path / "myreader.py").write_text("def read(*a):\n    return 1\n")
+    sys.path.insert(0, str(tmp_path))
+    try:
+        mod = importlib.import_module("myreader")
+        before = reader_fingerprint(mod.read)
+        (tmp_path / "myreader.py").write_text("def read(*a):\n    return 2\n")
+        assert reader_fingerprint(mod.read) != before
+    finally:
+        sys.path.remove(str(tmp_path))
+        sys.modules.pop("myreader", None)
+    r = sample_reading()
+    ReadingCache(tmp_path, None, DEFAULT, "reader-a").put(r)
+    assert ReadingCache(tmp_path, None, DEFAULT, "reader-b").get(r.sha256, "x") is None
+    assert ReadingCache(tmp_path, None, DEFAULT, "reader-a").get(r.sha256, "x") is not None

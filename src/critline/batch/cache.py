@@ -1,8 +1,8 @@
 """Resumable batches: one JSON file per photo result, keyed by what the result depends on.
 
 A reading depends on the photo's bytes (sha256), the calibration (its id), the
-instrument description and the reader's version; the cache key is a hash of
-those four, so a re-run after an interruption or after adding photos reads only
+instrument description and the reader (critline's version and a hash of the
+reader's source files); the cache key is a hash of those, so a re-run after an interruption or after adding photos reads only
 what is new, and a change of calibration or instrument reads everything again.
 Files are written atomically (:mod:`critline.fileio`); a damaged cache file is
 ignored and the photo read again.
@@ -39,6 +39,33 @@ def instrument_fingerprint(instrument: Instrument | None) -> str:
         return "default"
     text = json.dumps(instrument.to_dict(), sort_keys=True)
     return hashlib.sha256(text.encode()).hexdigest()[:16]
+
+
+def reader_fingerprint(reader) -> str:
+    """A hash of the reader's source: the files of the package its module belongs to.
+
+    A changed reader (a new release, or code being worked on) reads photos anew
+    instead of reusing results it would no longer give.
+    """
+    import importlib
+    import inspect
+
+    module_name = getattr(reader, "__module__", None) or ""
+    h = hashlib.sha256(module_name.encode())
+    try:
+        module = importlib.import_module(module_name)
+        path = Path(inspect.getfile(module))
+    except (ImportError, TypeError, OSError):
+        return h.hexdigest()[:16]
+    # a module inside a package: the whole package folder (its stages live in sibling files)
+    files = sorted(path.parent.glob("*.py")) if getattr(module, "__package__", "") else [path]
+    for f in files:
+        try:
+            h.update(f.name.encode())
+            h.update(f.read_bytes())
+        except OSError:
+            continue
+    return h.hexdigest()[:16]
 
 
 def _num(x):
@@ -124,16 +151,19 @@ class ReadingCache:
     calibration_id : str or None
         Id of the calibration the readings use (None: nominal scale values).
     instrument : Instrument or None
+    reader_id : str
+        Fingerprint of the reader (:func:`reader_fingerprint`).
     """
 
     def __init__(self, directory: str | Path, calibration_id: str | None,
-                 instrument: Instrument | None):
+                 instrument: Instrument | None, reader_id: str = ""):
         self.directory = Path(directory)
         self.calibration_id = calibration_id or "nominal"
         self.instrument_id = instrument_fingerprint(instrument)
+        self.reader_id = reader_id
 
     def key(self, sha256: str) -> str:
-        text = f"{sha256}|{self.calibration_id}|{self.instrument_id}|{__version__}"
+        text = f"{sha256}|{self.calibration_id}|{self.instrument_id}|{__version__}|{self.reader_id}"
         return hashlib.sha256(text.encode()).hexdigest()[:40]
 
     def path(self, sha256: str) -> Path:

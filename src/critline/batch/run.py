@@ -8,7 +8,7 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from critline.batch.cache import ReadingCache, file_sha256
+from critline.batch.cache import ReadingCache, file_sha256, reader_fingerprint
 from critline.batch.grouping import Grouping, Problem, group_photos
 from critline.batch.stones import PhotoResult, StoneResult, analyse_stone
 from critline.batch.work import ReadTask, default_reader, is_verdict, prepare_workers, read_many
@@ -123,7 +123,8 @@ def run_batch(source: str | Path, *, calibration=None, instrument: Instrument | 
     reader = reader or default_reader()
     if workers is None or workers > 1:
         prepare_workers(reader)
-    cache = ReadingCache(out_dir / "cache", getattr(calibration, "id", None), instrument)
+    cache = ReadingCache(out_dir / "cache", getattr(calibration, "id", None), instrument,
+                         reader_fingerprint(reader))
 
     results: dict[str, PhotoResult] = {}
     tasks: list[ReadTask] = []
@@ -163,7 +164,8 @@ def run_batch(source: str | Path, *, calibration=None, instrument: Instrument | 
 
     liquid = getattr(instrument, "liquid_ri", None)
     stones = tuple(
-        analyse_stone(stone, tuple(results[i.display] for i in stone.photos), liquid_ri=liquid)
+        analyse_stone(stone, tuple(results[i.display] for i in stone.photos), liquid_ri=liquid,
+                      instrument=instrument, calibration=calibration)
         for stone in grouping.stones
     )
     problems = tuple(photo_problems(stones)) + grouping.problems

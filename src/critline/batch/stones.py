@@ -61,18 +61,57 @@ def _core():
     return Observation, analyse_session, identify
 
 
+#: quality flag the reader puts on a spot (distance) view of a curved stone
+SPOT_FLAG = "spot_reading"
+
+
+def is_spot_view(reading: PhotoReading) -> bool:
+    return SPOT_FLAG in reading.quality.flags or any(e.kind == "spot" for e in reading.edges)
+
+
 def observation(item: PhotoItem, reading: PhotoReading):
-    """The core's ``Observation`` for one usable photo."""
+    """The core's ``Observation`` for one usable photo (a spot view gives a spot reading)."""
     Observation = _core()[0]
+    spots = tuple((float(e.ri), float(e.uncertainty)) for e in reading.edges if e.kind == "spot")
+    if spots:
+        return Observation(edges=spots, spot=True, label=item.display)
     edges = tuple((float(e.ri), float(e.uncertainty))
                   for e in sorted(reading.stone_edges, key=lambda e: e.ri))
     return Observation(edges=edges, rotation=item.rotation, polariser=item.polariser,
                        over_limit=reading.status == "over_limit", label=item.display)
 
 
+def spot_series_observation(photos, instrument, calibration, notes: list):
+    """One spot observation from a series of spot views of a stone (the head moved between
+    them): the reader's half-dark point of the series (:func:`critline.photo.spot.read_spot_series`).
+    None when there is no series reading; the individual spot readings are used then."""
+    try:
+        from critline.photo.spot import read_spot_series
+    except ImportError:
+        return None
+    try:
+        series = read_spot_series([p.reading for p in photos], instrument, calibration)
+    except Exception as exc:  # the per-photo spot readings still stand
+        notes.append(f"spot series not combined ({type(exc).__name__}: {_one_line(exc)})")
+        return None
+    if series.status != "ok" or series.ri is None:
+        return None
+    Observation = _core()[0]
+    notes.append(f"spot reading {series.ri:.2f} from the series of {len(photos)} spot photo(s) "
+                 f"(where the spot is half dark; {len(series.used)} showed the split)")
+    return Observation(edges=((float(series.ri), float(series.uncertainty)),), spot=True,
+                       label=f"spot series of {len(photos)} photos")
+
+
 def analyse_stone(group: StoneGroup, photos: tuple[PhotoResult, ...], *,
-                  liquid_ri: float | None = None) -> StoneResult:
-    """Session analysis and identification of one stone from its photo results."""
+                  liquid_ri: float | None = None, instrument=None,
+                  calibration=None) -> StoneResult:
+    """Session analysis and identification of one stone from its photo results.
+
+    Flat-facet photos become one observation each; spot views of a curved stone
+    (several, as the head moves) are combined into one spot reading when the
+    reader can, else each counts as a spot reading of its own.
+    """
     notes: list[str] = []
     usable = [p for p in photos if p.usable]
     n_bad = len(photos) - len(usable)
@@ -81,13 +120,15 @@ def analyse_stone(group: StoneGroup, photos: tuple[PhotoResult, ...], *,
     if not usable:
         notes.append("no usable reading: nothing to analyse")
         return StoneResult(group.name, photos, None, None, tuple(notes), group.sg)
-    if all(p.item.rotation is None for p in usable):
+    facet = [p for p in usable if not is_spot_view(p.reading)]
+    spot = [p for p in usable if is_spot_view(p.reading)]
+    if facet and all(p.item.rotation is None for p in facet):
         notes.append("rotation not known for any photo: readings are shown in photo order and "
                      "the analysis relies on the edges alone")
-    elif any(p.item.rotation is None for p in usable):
-        k = sum(p.item.rotation is None for p in usable)
+    elif any(p.item.rotation is None for p in facet):
+        k = sum(p.item.rotation is None for p in facet)
         notes.append(f"rotation not known for {k} photo(s)")
-    settings = {p.item.polariser_setting for p in usable}
+    settings = {p.item.polariser_setting for p in facet}
     if settings == {"unknown"}:
         notes.append("polariser setting not known for any photo")
 
@@ -95,7 +136,14 @@ def analyse_stone(group: StoneGroup, photos: tuple[PhotoResult, ...], *,
     # the core refuses contradictory or impossible readings with an error; in a batch that is
     # a finding about this stone, said in its notes, and the other stones go on
     try:
-        observations = [observation(p.item, p.reading) for p in usable]
+        series = (spot_series_observation(spot, instrument, calibration, notes)
+                  if len(spot) >= 2 else None)
+        # a spot view without a split (wholly light spot) bounds nothing on its own
+        chosen = facet + ([] if series is not None else
+                          [p for p in spot if any(e.kind == "spot" for e in p.reading.edges)])
+        observations = [observation(p.item, p.reading) for p in chosen]
+        if series is not None:
+            observations.append(series)
         analysis = analyse_session(observations, liquid_ri=liquid_ri)
     except (CritlineError, ValueError) as exc:
         notes.append(f"the readings could not be reduced: {_one_line(exc)}")

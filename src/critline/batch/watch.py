@@ -19,7 +19,7 @@ import time
 from collections.abc import Callable
 from pathlib import Path
 
-from critline.batch.cache import ReadingCache, file_sha256
+from critline.batch.cache import ReadingCache, file_sha256, reader_fingerprint
 from critline.batch.grouping import StoneGroup, group_folder
 from critline.batch.run import BatchResult, calibration_summary, photo_problems
 from critline.batch.stones import PhotoResult, StoneResult, analyse_stone
@@ -80,7 +80,8 @@ class _Watcher:
         self.out_dir = Path(out_dir)
         self.name_pattern = name_pattern
         self.reader = reader
-        self.cache = ReadingCache(self.out_dir / "cache", getattr(calibration, "id", None), self.instrument)
+        self.cache = ReadingCache(self.out_dir / "cache", getattr(calibration, "id", None), self.instrument,
+                                  reader_fingerprint(reader))
         self.seen: dict[str, tuple[int, int]] = {}      # display -> (size, mtime) at the last look
         self.done: dict[str, tuple[int, int]] = {}      # display -> (size, mtime) when read
         self.results: dict[str, PhotoResult] = {}
@@ -131,7 +132,8 @@ class _Watcher:
         group = self.groups[name]
         photos = tuple(self.results[i.display] for i in group.photos if i.display in self.results)
         return analyse_stone(StoneGroup(name, tuple(p.item for p in photos), group.sg), photos,
-                             liquid_ri=self.instrument.liquid_ri)
+                             liquid_ri=self.instrument.liquid_ri, instrument=self.instrument,
+                             calibration=self.calibration)
 
     def result(self, elapsed: float) -> BatchResult:
         stones = tuple(self.stone(n) for n in self.order)

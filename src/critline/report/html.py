@@ -255,7 +255,8 @@ def _thumbs(stone) -> str:
         if uri is None:
             uri = thumbnail_data_uri(p.item.path)
             note = " · photo as taken (no marked-up copy)"
-        edges = ", ".join(f"{e.ri:.4f}" for e in sorted(p.reading.stone_edges, key=lambda e: e.ri))
+        edges = ", ".join([f"{e.ri:.4f}" for e in sorted(p.reading.stone_edges, key=lambda e: e.ri)]
+                          + [f"spot {e.ri:.2f}" for e in p.reading.edges if e.kind == "spot"])
         caption = (f"{_e(p.item.display)}<br>rotation {_e(_deg(p.item.rotation))} · polariser "
                    f"{_e(p.item.polariser_setting)}<br>{_e(p.reading.status)}"
                    + (f": {_e(edges)}" if edges else "") + _e(note))
@@ -291,6 +292,8 @@ def _readings_table(stone) -> str:
         r = p.reading
         edges = ", ".join(f"{e.ri:.4f} ± {max(e.uncertainty, 1e-4):.4f}"
                           for e in sorted(r.stone_edges, key=lambda e: e.ri))
+        edges = ", ".join([edges] * bool(edges) + [f"spot {e.ri:.2f} ± {e.uncertainty:.2f}"
+                                                   for e in r.edges if e.kind == "spot"])
         liquid = ", ".join(f"{e.ri:.4f}" for e in r.edges if e.kind == "liquid")
         detail = r.reason or " ".join(r.quality.flags)
         rows.append(

@@ -15,7 +15,8 @@ COLUMNS = (
     "row", "stone", "photo", "rotation", "polariser", "status",
     "ri_low", "ri_high", "birefringence", "uncertainty", "optic_character", "optic_sign",
     "over_limit", "leading_candidate", "score", "edge_1", "edge_1_uncertainty",
-    "edge_2", "edge_2_uncertainty", "liquid_edge", "light", "flags", "reason",
+    "edge_2", "edge_2_uncertainty", "liquid_edge", "spot", "spot_uncertainty", "light", "flags",
+    "reason",
 )
 
 
@@ -58,6 +59,9 @@ def batch_rows(result) -> list[dict]:
                 "flags": " ".join(r.quality.flags), "reason": r.reason or "",
                 "liquid_edge": r4(liquid[0].ri) if liquid else None,
             }
+            spots = [e for e in r.edges if e.kind == "spot"]
+            if spots:
+                row["spot"], row["spot_uncertainty"] = r4(spots[0].ri), r4(spots[0].uncertainty)
             for k, e in enumerate(stone_edges[:2], start=1):
                 row[f"edge_{k}"] = r4(e.ri)
                 row[f"edge_{k}_uncertainty"] = r4(e.uncertainty)
