@@ -197,7 +197,7 @@ def find_field(grey: np.ndarray, reduce: int = 1, seed: int = 0) -> FieldResult:
         otsu = float(threshold_otsu(g))
     except ValueError:
         return FieldResult(None, "blank frame: no contrast")
-    levels = sorted({otsu, lo + 0.25 * (otsu - lo)})
+    levels = sorted({otsu, lo + 0.5 * (otsu - lo), lo + 0.25 * (otsu - lo), lo + 0.12 * (hi - lo)})
     tol = max(1.5, short / 200)
     gx = cv2.Sobel(g, cv2.CV_32F, 1, 0, ksize=3) / 8
     gy = cv2.Sobel(g, cv2.CV_32F, 0, 1, ksize=3) / 8
@@ -214,7 +214,7 @@ def find_field(grey: np.ndarray, reduce: int = 1, seed: int = 0) -> FieldResult:
     ey, ex = np.nonzero(edges[2:-2, 2:-2])
     if len(ex) >= 30:
         point_sets.append((-1.0, np.stack([ex + 2, ey + 2], axis=1).astype(np.float64)))
-    best = None
+    candidates = []
     for level, pts in point_sets:
         if len(pts) > 1500:  # thin out evenly, keeps RANSAC fast
             pts = pts[:: len(pts) // 1500 + 1]
@@ -223,29 +223,41 @@ def find_field(grey: np.ndarray, reduce: int = 1, seed: int = 0) -> FieldResult:
             continue
         cx, cy, r, _ = fit
         support, frac = _score_circle(cx, cy, r, gx, gy, thr, tol)
-        if best is None or support > best[0]:
-            best = (support, frac, cx, cy, r, level)
-    if best is None:
+        candidates.append((support, frac, cx, cy, r, level))
+    if not candidates:
         return FieldResult(None, "no circular field stop found (not an eyepiece view?)")
-    support, frac, cx, cy, r, level = best
+    # best-outlined circle first; a candidate that fails the checks (e.g. a vignetting
+    # crescent's arc) gives way to the next
+    candidates.sort(key=lambda c: -c[0])
+    first_reason = None
     yy, xx = np.mgrid[0:h, 0:w]
+    for support, frac, cx, cy, r, level in candidates:
+        reason, circle = _check(g, xx, yy, lo, support, frac, cx, cy, r, level, reduce)
+        if circle is not None:
+            return FieldResult(circle)
+        first_reason = first_reason or reason
+    return FieldResult(None, first_reason)
+
+
+def _check(g, xx, yy, lo, support, frac, cx, cy, r, level, reduce):
+    """(reason, None) when the circle is not a field stop, else (None, FieldCircle)."""
     d = np.hypot(xx - cx, yy - cy)
     inside_v = g[d < 0.9 * r]
     outside_v = g[(d > 1.08 * r) & (d < 1.35 * r)]
     if inside_v.size < 50:
-        return FieldResult(None, "no circular field stop found (not an eyepiece view?)")
+        return "no circular field stop found (not an eyepiece view?)", None
     field_level = float(np.percentile(inside_v, 98))
     surround = float(np.percentile(outside_v, 50)) if outside_v.size > 50 else float(lo)
     contrast = (field_level - surround) / max(field_level, 1e-6)
-    # where the field is bright the surround must be dark right across the stop
     circle = FieldCircle(cx * reduce + (reduce - 1) / 2, cy * reduce + (reduce - 1) / 2, r * reduce,
                          support, frac, contrast,
                          {"field_level": field_level, "surround_level": surround, "threshold": level})
     if support < 0.3:
-        return FieldResult(None, f"no circular field stop found (best circle only {support:.0%} outlined)")
+        return f"no circular field stop found (best circle only {support:.0%} outlined)", None
     if contrast < 0.5:
-        return FieldResult(None, f"no dark surround around a bright field (contrast {contrast:.2f})")
+        return f"no dark surround around a bright field (contrast {contrast:.2f})", None
+    # where the field is bright the surround must be dark right across the stop
     outside_frac = float(np.mean(outside_v > surround + 0.5 * (field_level - surround))) if outside_v.size else 0
     if outside_frac > 0.15:
-        return FieldResult(None, "bright areas outside the candidate field stop (not an eyepiece view?)")
-    return FieldResult(circle)
+        return "bright areas outside the candidate field stop (not an eyepiece view?)", None
+    return None, circle
