@@ -35,6 +35,9 @@ WORK_DIAMETER = 560
 #: Short side (pixels) wanted for finding the field.
 COARSE_SHORT = 300
 
+#: Systematic geometry term (graduation units) added in quadrature: perspective and resampling
+#: effects the fitted figures do not see (sized on the tuning seeds, below 10000).
+GEOMETRY_FLOOR = 0.03
 #: Edge blur (sigma, scale value units for a 0.01 step) above which a reading is flagged blurred.
 BLURRED_WIDTH = 0.004
 #: Stone-edge contrast below which a reading is flagged low_contrast.
@@ -286,7 +289,8 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
             e.value / step_val - inst.first / step_val, np.polynomial.polynomial.polyder(grads.coef))))
         k_straight = prof.figures.get("edge_row_scatter", 0.0) / max(rows_per_index, 1e-6)
         scale_pos = (e.value - inst.first) / step_val
-        scale_unc = math.sqrt((e.uncertainty / step_val) ** 2 + k_unc ** 2 + k_straight ** 2)
+        scale_unc = math.sqrt((e.uncertainty / step_val) ** 2 + k_unc ** 2 + k_straight ** 2
+                              + GEOMETRY_FLOOR ** 2)
         u = (row - frame.half) / frame.radius
         eflags: tuple[str, ...] = ()
         if calibration is not None:
