@@ -38,6 +38,14 @@ def fake_reader(path, instrument=None, calibration=None, overlay_dir=None) -> Ph
     if not sidecar.exists():
         return rejected(path.name, "", "no eyepiece field found")
     truth = json.loads(sidecar.read_text())
+    if "spot" in truth:  # a spot view: the figures the reader's spot series uses
+        sp = truth["spot"]
+        edges = tuple(Edge(ri=e["ri"], uncertainty=0.01, kind="spot", scale_position=(e["ri"] - 1.30) / 0.01,
+                           scale_uncertainty=1.0, contrast=0.5) for e in truth["edges"])
+        figures = {"spot_centre_scale": sp["centre"], "dark_fraction": sp["dark_fraction"],
+                   "spot_length_scale": sp["length"]}
+        return PhotoReading(photo=path.name, sha256="", status="ok" if edges else "no_edge",
+                            edges=edges, quality=Quality(flags=("spot_reading",), figures=figures))
     edges = tuple(
         Edge(ri=e["ri"], uncertainty=0.0004, kind=e.get("kind", "stone"),
              scale_position=(e["ri"] - 1.30) / 0.01, scale_uncertainty=0.04, contrast=0.6)
@@ -53,7 +61,7 @@ def fake_reader(path, instrument=None, calibration=None, overlay_dir=None) -> Ph
                         profile=(xs, ys), field_circle=(32.0, 24.0, 20.0))
 
 
-def write_fake_photo(path: Path, edges, status="ok", size=(64, 48)) -> Path:
+def write_fake_photo(path: Path, edges, status="ok", size=(64, 48), spot=None) -> Path:
     """A small PNG/JPEG with its truth sidecar: edges = list of RI (stone) or (ri, kind)."""
     path.parent.mkdir(parents=True, exist_ok=True)
     rng = np.random.default_rng(int.from_bytes(hashlib.sha256(str(path).encode()).digest()[:4], "big"))
@@ -61,7 +69,8 @@ def write_fake_photo(path: Path, edges, status="ok", size=(64, 48)) -> Path:
     listed = [e if isinstance(e, tuple) else (e, "stone") for e in edges]
     path.with_suffix(".json").write_text(json.dumps(
         {"schema": "critline.synth-truth/1", "status": status,
-         "edges": [{"ri": ri, "kind": kind} for ri, kind in listed]}))
+         "edges": [{"ri": ri, "kind": kind} for ri, kind in listed],
+         **({"spot": spot} if spot else {})}))
     return path
 
 

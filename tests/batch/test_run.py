@@ -185,3 +185,21 @@ def test_manifest_batch_passes_rotation_polariser_and_sg(tmp_path, fake_core):
     assert cushion.identification.notes == () and cushion.photos[0].item.polariser_setting == "none"
     doc = batch_document(res)
     assert doc["grouping"] == "manifest" and doc["stones"][1]["sg"] == 2.65
+
+
+def test_spot_views_of_a_cabochon_give_one_spot_reading(tmp_path):
+    """Three spot photos as the head moves: the reader's series reading, through the real core."""
+    cab = tmp_path / "parcel" / "cabochon"
+    # the spot's centre moves up the scale; its dark fraction falls linearly and is one half
+    # at graduation 36.0, i.e. 1.30 + 0.01 * 36.0 = 1.66 on the default scale
+    for name, centre, frac, ri in (("h00.png", 35.5, 0.75, 1.66), ("h01.png", 36.0, 0.5, 1.66),
+                                   ("h02.png", 36.6, 0.2, 1.67)):
+        write_fake_photo(cab / name, [(ri, "spot")], spot={"centre": centre, "dark_fraction": frac,
+                                                           "length": 2.0})
+    res = run_batch(tmp_path / "parcel", out_dir=tmp_path / "out", workers=1, reader=fake_reader)
+    stone = res.stones[0]
+    assert stone.analysis.spot_ri == pytest.approx(1.66, abs=0.005)
+    assert any("from the series of 3 spot photo(s)" in n for n in stone.notes)
+    assert not any("rotation not known" in n for n in stone.notes)  # no facet photos here
+    row = [r for r in batch_csv(res).splitlines() if "cabochon/h02.png" in r][0]
+    assert ",1.6700,0.0100," in row
