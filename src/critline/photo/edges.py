@@ -66,6 +66,8 @@ from scipy.ndimage import gaussian_filter1d, median_filter
 
 from critline.photo import edgemodel as em
 
+#: Width of the band below full scale taken as clipped (relative), see _prepare.
+CLIP_BAND = 0.01
 #: Fewest usable samples for any analysis.
 MIN_SAMPLES = 24
 #: Where contact liquids commonly sit when the instrument does not say (from memory).
@@ -202,14 +204,20 @@ def _prepare(values, brightness, noise, prism_index):
     fallback = max(diff_sigma, 1e-4)
     s = np.where(np.isfinite(s) & (s > 0), s, fallback)
     s = np.clip(s, 1e-5, 1e3)
-    # clipped highlights: several samples sitting exactly at the maximum
+    # clipped highlights: several samples sitting exactly at the maximum; or, for a
+    # profile on the usual 0..1 scale of a decoded photo that reaches full scale, a
+    # cluster within CLIP_BAND of its top (JPEG and the median across columns blur
+    # the clip level a little)
     top = float(np.max(y))
     clipped = y >= top - 1e-9 * max(abs(top), 1.0)
+    raw_top = top * scale
+    if 0.95 <= raw_top <= 1.05:
+        clipped = y >= top * (1.0 - CLIP_BAND)
     if np.count_nonzero(clipped) < max(3, y.size // 200):
         clipped = np.zeros_like(clipped)
         clip_level = np.inf
     else:
-        clip_level = top
+        clip_level = float(np.min(y[clipped]))
     # dust: isolated departures from a running median (a median of 5 keeps any
     # monotone run, so the edge itself is never touched)
     dev = y - median_filter(y, size=5, mode="nearest")
