@@ -16,11 +16,16 @@ Method
 4. Consecutive indices are assigned from the spacing; a low-order polynomial
    index -> position is fitted by least squares, robustly (predict, match the
    nearest detection, reject outliers, refit).
-5. The long/medium pattern (every 10th/5th graduation longer) fixes the
-   index modulo 10; the scale ends (no graduation where one would be visible)
-   and the scale's extent fix it absolutely.  The direction (which way the
-   values increase) comes from the physics: the dark side of the shadow is
-   the low-index side, and the spacing grows toward high values.
+5. The direction (which way the values increase) comes from the physics:
+   the dark side of the shadow is the low-index side (the shadow edge is
+   told from a vignetting boundary by its straightness across the field).
+   The absolute index is chosen among all offsets by a template match
+   (:func:`_identify`): lines seen where the scale has graduations count
+   for an offset, lines beyond the scale's ends and missing lines where one
+   would clearly be seen count against it; the long/medium pattern (every
+   10th/5th graduation longer) is added, and a weak prior that the scale is
+   centred in the field stop breaks ties.  Too small a margin between the
+   best offsets rejects the photo; a small one flags it.
 6. The map position -> value is the inverse of the fitted polynomial; its
    standard uncertainty comes from the fit's covariance.
 """
@@ -72,8 +77,6 @@ class Graduations:
         Rms residual of the detected positions about the fit, pixels.
     expected : int
         Number of scale graduations whose predicted position lies in the usable field.
-    flipped : bool
-        True when the frame had to be reversed (values increase down the rows afterwards).
     column : GraduationColumn
     figures : dict
     flags : tuple of str
@@ -262,8 +265,6 @@ def _robust_map(pos, k, period, deg):
         if keep.sum() < deg + 3:
             break
         coef, cov, res = _fit(k[keep], pos[keep], deg)
-        full_res = pos - np.polynomial.polynomial.polyval(k, coef)
-        kf = k.astype(float)
         # re-index every detection against the model: nearest index
         grid = np.arange(k.min() - 5, k.max() + 6)
         rows = np.polynomial.polynomial.polyval(grid, coef)
@@ -278,7 +279,6 @@ def _robust_map(pos, k, period, deg):
         dup = np.zeros(len(k), bool)
         dup[order[1:]] = k[order[1:]] == k[order[:-1]]
         keep &= ~dup
-        del kf
     coef, cov, res = _fit(k[keep], pos[keep], deg)
     return k, keep, coef, cov, res
 
@@ -355,7 +355,6 @@ def find_graduations(frame: FieldFrame, instrument: Instrument, dark: np.ndarray
         coef, cov, _ = _fit(k, pos, deg)
     max_len = int(max(4 * (col.v_hi - col.v_lo + 1), 0.1 * frame.radius))
     lengths, _, _ = _lengths(dark, pos, col, max_len)
-    labels = np.zeros(len(pos))  # printed values are not read (no character recognition)
     flags = []
     if callable(values_down):  # decided from the brightness within the scale's extent
         values_down = values_down(float(pos.min() - 2 * col.period), float(pos.max() + 2 * col.period))
@@ -367,7 +366,7 @@ def find_graduations(frame: FieldFrame, instrument: Instrument, dark: np.ndarray
         pos = (n - 1) - pos
         k = -k
         order = np.argsort(pos)
-        pos, k, lengths, prom, labels = pos[order], k[order], lengths[order], prom[order], labels[order]
+        pos, k, lengths, prom = pos[order], k[order], lengths[order], prom[order]
         dark = dark[::-1, ::-1]
         profile = profile[::-1]
         col = GraduationColumn(col.period, n - 1 - col.v_hi, n - 1 - col.v_lo, col.periodicity)
@@ -375,7 +374,7 @@ def find_graduations(frame: FieldFrame, instrument: Instrument, dark: np.ndarray
     if not values_down:
         local_noise = local_noise[::-1]
     coef_rel, _, _ = _fit(k, pos, deg)
-    offset, margin, phase_margin, details = _identify(k, pos, lengths, labels, coef_rel, profile,
+    offset, margin, phase_margin, details = _identify(k, pos, lengths, coef_rel, profile,
                                                       local_noise, frame, col, instrument)
     if margin < 1.0:
         raise GraduationsNotFound(
@@ -441,7 +440,7 @@ def _pattern_score(lengths, absolute, long_every, medium_every, scale):
     return 1.25 * (top - ms) / scale
 
 
-def _identify(k, pos, lengths, labels, coef, profile, noise, frame, col, instrument):
+def _identify(k, pos, lengths, coef, profile, noise, frame, col, instrument):
     """Absolute index of the graduations: the offset ``c`` with absolute index ``k + c``.
 
     Every candidate offset is scored as a template match: at each integer

@@ -342,7 +342,6 @@ def _no_graduations(photo, name, reason, figures, flags, calibration, frame, cir
     (edge position relative to the field circle -> RI), else rejected with the reason."""
     if calibration is None or getattr(calibration, "field_map", None) is None:
         return rejected(name, photo.sha256, reason)
-    n = frame.grey.shape[0]
     # no graduation column known: the profile over the central columns (the median ignores the
     # graduations and labels, which are thin)
     prof = brightness_profile(frame, frame.half, frame.half - 1, 0, max(2.0, frame.radius / 40))
@@ -377,7 +376,6 @@ def _no_graduations(photo, name, reason, figures, flags, calibration, frame, cir
     edges.sort(key=lambda e: e.ri)
     flags = list(flags) + ["field_frame"]
     figures = dict(figures, graduations_failure=reason)
-    del n
     return PhotoReading(photo=name, sha256=photo.sha256, status=analysis.status, reason=None,
                         edges=tuple(edges), light=getattr(analysis, "light", "unknown"), mode="field_frame",
                         quality=Quality(tuple(dict.fromkeys(flags)), figures),
