@@ -11,7 +11,7 @@ from pathlib import Path
 from critline.batch.cache import ReadingCache, file_sha256, reader_fingerprint
 from critline.batch.grouping import Grouping, Problem, group_photos
 from critline.batch.stones import PhotoResult, StoneResult, analyse_stone
-from critline.batch.work import ReadTask, default_reader, is_verdict, prepare_workers, read_many
+from critline.batch.work import ReadTask, default_reader, is_verdict, read_many
 from critline.errors import EXIT_OK, EXIT_REJECTED
 from critline.instrument import DEFAULT, Instrument
 from critline.readings import rejected
@@ -121,8 +121,6 @@ def run_batch(source: str | Path, *, calibration=None, instrument: Instrument | 
     out_dir = Path(out_dir)
     grouping: Grouping = group_photos(source, name_pattern=name_pattern, skip=(out_dir,))
     reader = reader or default_reader()
-    if workers is None or workers > 1:
-        prepare_workers(reader)
     cache = ReadingCache(out_dir / "cache", getattr(calibration, "id", None), instrument,
                          reader_fingerprint(reader))
 
