@@ -167,3 +167,27 @@ def test_cli_writes_a_series_and_refuses_to_overwrite(tmp_path):
     assert truth["view"] == "spot" and truth["spot"]["ri"] == pytest.approx(1.66)
     assert main(args) == 2  # usage error: refuses to overwrite
     assert main(["synth", "spot", str(tmp_path / "X"), "--ri", "7"]) == 2
+
+
+def test_demo_cabochon_reads_and_demo_facets_are_not_spots():
+    # samples/parcel/HL-07: invented jadeite cabochon (about 1.66, from memory), instrument reading
+    # about 0.003 low uncorrected (samples/README.md)
+    from pathlib import Path
+
+    from critline.photo.spot import read_spot_photo
+    from critline.synth.demo import demo_instrument
+
+    root = Path(__file__).resolve().parents[2] / "samples"
+    cab = sorted((root / "parcel" / "HL-07").glob("*.jpg"))
+    if not cab:
+        pytest.skip("demo samples not present")
+    inst = demo_instrument()
+    readings = [read_spot_photo(p, inst) for p in cab]
+    assert all(r is not None for r in readings)
+    ok = [r for r in readings if r.status == "ok"]
+    assert len(ok) >= 3
+    truth = json.loads(cab[0].with_suffix(".json").read_text())["spot"]["ri"]
+    assert all(abs(r.edges[0].ri - truth) <= SPOT_PRECISION for r in ok)
+    assert abs(read_spot_series(readings, inst).ri - truth) <= SPOT_PRECISION
+    facets = sorted((root / "parcel" / "HL-01").glob("*.jpg"))[:3]
+    assert facets and all(read_spot_photo(p, inst) is None for p in facets)

@@ -391,6 +391,30 @@ def _paint_over_bright_blob(grey: np.ndarray, cx: float, cy: float, r: float) ->
     return out
 
 
+def read_spot_photo(path, instrument: Instrument | None = None, calibration=None,
+                    force: bool = False) -> PhotoReading | None:
+    """Load ``path``, find its field and read it as a spot view (None if it is not one).
+
+    A convenience over :func:`read_spot_view` for scripts and tests; ``read_photo`` calls
+    :func:`read_spot_view` itself after its own loading and field finding.  A photo that cannot
+    be loaded or has no field comes back rejected with the reason when ``force``, else None.
+    """
+    from critline.photo.field import find_field
+    from critline.photo.load import load_photo
+
+    name = str(path)
+    try:
+        photo = load_photo(path)
+    except PhotoRejected as exc:
+        return rejected(name, "", str(exc)) if force else None
+    short = min(photo.width, photo.height)
+    reduce = next((r for r in (8, 4, 2) if short / r >= 300), 1)
+    found = find_field(decode(photo, reduce, grey=True), reduce)
+    if found.circle is None:
+        return rejected(name, photo.sha256, found.reason or "no field found") if force else None
+    return read_spot_view(photo, found.circle, instrument, calibration, name, force=force)
+
+
 def read_spot_view(photo: LoadedPhoto, circle, instrument: Instrument | None = None, calibration=None,
                    name: str | None = None, force: bool = False) -> PhotoReading | None:
     """Read a spot view, or return None when the photo is not one (see the module's hook example).
