@@ -22,10 +22,14 @@ from critline.photo.edges import EdgeFit, ProfileAnalysis, analyse_profile
 N_PRISM = 1.88
 
 
-def make_profile(values, onsets, *, sigma=0.001, weights=None, low=0.05, high=1.0, g=1.0,
+def make_profile(values, onsets, *, sigma=0.001, weights=None, low=0.05, high=0.85, g=1.0,
                  prism=N_PRISM, liquid=None, liquid_step=0.0, trend=0.0, noise=0.003,
                  seed=0, clip=None, dust=0):
-    """Brightness along the scale: low + (high - low) * sum w_k R(s; n_k)^g, blurred."""
+    """Brightness along the scale: low + (high - low) * sum w_k R(s; n_k)^g, blurred.
+
+    On the 0..1 scale of a decoded photo; the default bright level stays clear of
+    full scale (a plateau at full scale is taken as clipped).
+    """
     rng = np.random.default_rng(seed)
     values = np.asarray(values, float)
     step = min(sigma / 12.0, 2e-5)
@@ -204,7 +208,7 @@ def test_unresolvable_pair_is_reported_as_one_edge():
 
 def test_liquid_line_above_a_stone_edge():
     values = scale()
-    y = make_profile(values, [1.544], liquid=1.790, liquid_step=0.15, noise=0.002, seed=6)
+    y = make_profile(values, [1.544], liquid=1.790, liquid_step=0.1, noise=0.002, seed=6)
     a = analyse_profile(values, y, 0.002, liquid_ri=1.79)
     assert a.status == "ok"
     assert [e.kind for e in a.edges] == ["stone", "liquid"]
@@ -244,11 +248,25 @@ def test_a_step_at_the_very_end_of_the_profile_is_not_an_edge():
 def test_clipped_highlights_are_flagged_and_honest():
     values = scale()
     for seed in range(3):
-        y = make_profile(values, [1.544], high=1.2, seed=seed, clip=1.0)
-        a = analyse_profile(values, y, 0.003)
-        (edge,) = stones(a)
-        assert "clipped" in a.flags
-        assert abs(edge.value - 1.544) <= 2 * edge.uncertainty
+        for clip_at in (1.0, 0.7):  # full scale, or an arbitrary scale clipped exactly
+            y = make_profile(values, [1.544], high=1.2 * clip_at, seed=seed, clip=clip_at)
+            a = analyse_profile(values, y, 0.003)
+            (edge,) = stones(a)
+            assert "clipped" in a.flags
+            assert abs(edge.value - 1.544) <= 2 * edge.uncertainty
+
+
+def test_over_exposure_hides_the_corner_and_widens_the_uncertainty():
+    # exposed 1.6x: the rise reaches full scale well below the onset, which is then
+    # only known to lie above that point
+    values = scale()
+    y = make_profile(values, [1.6], low=0.05, high=1.6, noise=0.0, clip=1.0)
+    y = np.round(y * 255) / 255
+    a = analyse_profile(values, y, 0.002)
+    (edge,) = stones(a)
+    assert "clipped" in a.flags
+    assert abs(edge.value - 1.6) <= 2 * edge.uncertainty
+    assert edge.uncertainty >= 0.0015
 
 
 def test_dust_and_vignetting_do_not_move_the_edge():

@@ -211,7 +211,7 @@ def _prepare(values, brightness, noise, prism_index):
     top = float(np.max(y))
     clipped = y >= top - 1e-9 * max(abs(top), 1.0)
     raw_top = top * scale
-    if 0.95 <= raw_top <= 1.05:
+    if 0.98 <= raw_top <= 1.05:
         clipped = y >= top * (1.0 - CLIP_BAND)
     if np.count_nonzero(clipped) < max(3, y.size // 200):
         clipped = np.zeros_like(clipped)
