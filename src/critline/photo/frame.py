@@ -124,8 +124,12 @@ def axis_angle(grey: np.ndarray, cx: float, cy: float, r: float) -> AxisEstimate
     gy = cv2.Sobel(hp, cv2.CV_32F, 0, 1, ksize=3)
     yy, xx = np.ogrid[y0:y1, x0:x1]
     inner = ((xx - cx) ** 2 + (yy - cy) ** 2) < (0.85 * r) ** 2
-    wgt = (gx * gx + gy * gy)[inner]
-    doubled = np.arctan2(2 * gx[inner] * gy[inner], gx[inner] ** 2 - gy[inner] ** 2)
+    energy = gx * gx + gy * gy
+    # the strongest fifth of the gradients carries nearly all the weight: use only those
+    sel = inner & (energy >= np.percentile(energy[inner], 80))
+    gxs, gys = gx[sel], gy[sel]
+    wgt = energy[sel]
+    doubled = np.arctan2(2 * gxs * gys, gxs ** 2 - gys ** 2)
     # orientation histogram (doubled angle): the peak, not the mean, so that other structure
     # (labels, dust, a curved crescent) spreads out instead of pulling the estimate
     nb = 360
@@ -137,7 +141,7 @@ def axis_angle(grey: np.ndarray, cx: float, cy: float, r: float) -> AxisEstimate
     c2 = float(np.sum(wgt[near] * np.cos(doubled[near])))
     s2 = float(np.sum(wgt[near] * np.sin(doubled[near])))
     angle = 0.5 * np.arctan2(s2, c2)
-    coherence = float(wgt[near].sum() / max(wgt.sum(), 1e-12))
+    coherence = float(wgt[near].sum() / max(float(energy[inner].sum()), 1e-12))
     return AxisEstimate(float(angle), coherence)
 
 
