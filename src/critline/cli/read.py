@@ -55,7 +55,7 @@ def _print_table(readings, calibration_id) -> None:
     title = "Readings (RI at 589.3 nm, " + (f"calibration {calibration_id})" if calibration_id
                                            else "nominal scale values)")
     table = Table(title=title, title_justify="left")
-    table.add_column("photo")
+    table.add_column("photo", overflow="fold")
     table.add_column("status")
     table.add_column("RI", justify="right")
     table.add_column("+-", justify="right")
