@@ -11,6 +11,10 @@ same file, measured side by side in the same run; peak memory of one read
 
     python bench/bench_read.py                 # held-out accuracy + speed
     python bench/bench_read.py --first 0 --count 60 --no-speed   # tuning range
+    python bench/bench_read.py --max-mp 6      # frames drawn above 6 MP re-drawn at 6 MP
+                                               # (rendering 48 MP frames takes long)
+
+Photos already rendered in ``--folder`` (sidecar present) are reused as they are.
 """
 
 from __future__ import annotations
@@ -113,7 +117,9 @@ def accuracy(first: int, count: int, folder: Path, workers: int, max_mp: float |
                                  ",".join(res["quality"]["flags"])))
     n = len(rows)
     times = [r[3] for r in rows]
-    print(f"photos: {n} (seeds {first}-{first + count - 1}, sodium light, nominal reading)")
+    mps = [t["params"]["width"] * t["params"]["height"] / 1e6 for _, t, _, _, _ in rows]
+    print(f"photos: {n} (seeds {first}-{first + count - 1}, sodium light, nominal reading, "
+          f"{min(mps):.1f}-{max(mps):.1f} MP)")
     if errors_clean:
         e = np.array(errors_clean)
         print(f"abs error, unflagged readings: n={len(e)} median={np.median(e):.5f} (target <= 0.0005) "
