@@ -372,6 +372,7 @@ def _try(p: _Profile, window: em.Window, onsets, sigma0, s_lo, s_hi, liquid_top:
                             [math.log(s_lo), math.log(g_lo)]])
     upper = np.concatenate([[window.values[-1]], np.full(count - 1, span),
                             [math.log(s_hi), math.log(g_hi)]])
+    upper = np.maximum(upper, lower + 1e-9)  # degenerate windows of odd inputs
     fit = em.fit(window, count, theta0, lower, upper)
     trial = _Trial(fit, window, _bic(fit), True, liquid_top)
     amps = fit.amplitudes
@@ -463,6 +464,8 @@ def _fit_group(p: _Profile, group, lo_limit, hi_limit, liquid_ri, prism_index):
         hi = min(top + max(0.012, 8 * s_hint), hi_limit, p.values[-1])
         s_lo = max(s_hint / 3.0, 0.3 * p.spacing)
         s_hi = min(max(s_hint * 3.0, s_lo * 1.5), 1.5 * SIGMA_MAX)
+        if s_lo >= s_hi:
+            return None, flags  # samples far too coarse for an edge of this kind
         window = em.make_window(p.values, p.y, p.weight, p.clipped, p.clip_level, lo, hi,
                                 s_lo, s_hi, prism_index)
         if window.values.size < 12:
