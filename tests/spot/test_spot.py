@@ -191,3 +191,18 @@ def test_demo_cabochon_reads_and_demo_facets_are_not_spots():
     assert abs(read_spot_series(readings, inst).ri - truth) <= SPOT_PRECISION
     facets = sorted((root / "parcel" / "HL-01").glob("*.jpg"))[:3]
     assert facets and all(read_spot_photo(p, inst) is None for p in facets)
+
+
+def test_read_photo_dispatches_spot_views_automatically():
+    """The demo cabochon (invented jadeite, about 1.66 from memory) reads through read_photo as a
+    spot reading, and a demo facet photo stays a flat-facet reading."""
+    from pathlib import Path
+
+    from critline.photo import read_photo
+
+    root = Path(__file__).resolve().parents[2] / "samples" / "parcel"
+    spot = read_photo(root / "HL-07" / "h01.jpg")
+    assert spot.status == "ok" and [e.kind for e in spot.edges] == ["spot"]
+    assert abs(spot.edges[0].ri - 1.656) <= 0.01 + 0.003  # +-0.01 (common practice) plus the demo scale's 0.003 offset
+    facet = read_photo(root / "HL-01" / "r000_pol0.jpg")
+    assert all(e.kind != "spot" for e in facet.edges)

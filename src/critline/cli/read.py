@@ -42,7 +42,7 @@ def _load_calibration(path: Path | None):
 def _fmt_edges(reading) -> tuple[str, str]:
     values, uncs = [], []
     for e in reading.edges:
-        tag = "" if e.kind == "stone" else " (liquid)"
+        tag = "" if e.kind == "stone" else f" ({e.kind})"
         values.append(f"{e.ri:.4f}{tag}")
         uncs.append(f"{e.uncertainty:.4f}")
     return "\n".join(values) or "-", "\n".join(uncs) or "-"

@@ -73,7 +73,7 @@ class _NoEdges:
     figures: dict = field(default_factory=dict)
 
 
-def _dominant_step(profile: Profile, period: float, half: int, radius: float, lo=None, hi=None):
+def _dominant_step(profile: Profile, period: float, half: int, radius: float, lo=None, hi=None, reach=0.85):
     """Sign and relative size of the main brightness step along the rows (within lo..hi).
 
     Candidates are the strongest rise and the strongest fall of the smoothed
@@ -90,11 +90,14 @@ def _dominant_step(profile: Profile, period: float, half: int, radius: float, lo
     bi = np.interp(grid, rows, b).astype(np.float32)
     sm = cv2.GaussianBlur(bi.reshape(-1, 1), (1, 0), sigmaX=0, sigmaY=sig).ravel()
     d = np.gradient(sm)
-    inner = np.abs(grid - half) < 0.85 * radius
+    inner = np.abs(grid - half) < reach * radius
     if lo is not None:
         inner &= (grid >= lo) & (grid <= hi)
     d = np.where(inner, d, 0)
-    top = float(np.nanpercentile(bi[inner], 95)) if inner.any() else float(np.max(bi))
+    # steps are measured against the brightest part of the whole field (not only the window):
+    # a gentle gradient in an all-dark window must not look like a shadow edge
+    body = np.abs(grid - half) < 0.95 * radius
+    top = float(np.nanpercentile(bi[body], 95)) if body.any() else float(np.max(bi))
     if top <= 0:
         return None, 0.0
     best = None
@@ -166,6 +169,14 @@ def read_photo(path, instrument: Instrument | None = None, calibration=None, ove
         result, evidence = rejected(name, photo.sha256, str(exc)), None
     except (MemoryError, cv2.error, ValueError, np.linalg.LinAlgError) as exc:
         result, evidence = rejected(name, photo.sha256, f"could not be analysed ({type(exc).__name__})"), None
+    if result.status in ("no_edge", "rejected") and evidence and evidence.get("circle") is not None:
+        # A spot (distance) view shows no shadow edge across the field; only then is the
+        # spot detector asked, so a flat-facet reading never pays for it nor turns into one.
+        from critline.photo.spot import read_spot_view
+
+        spot = read_spot_view(photo, evidence["circle"], inst, calibration, name)
+        if spot is not None:
+            result = spot
     if overlay_dir is not None:
         from critline.photo.overlay import write_overlay
         try:
@@ -220,6 +231,12 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
 
     def direction(lo, hi):
         down, step = _dominant_step(prof, col.period, frame.half, frame.radius, lo, hi)
+        if step < 0.15:
+            # no clear step along the scale: over the limit the bright side can lie beyond the
+            # scale's end, out toward the field stop
+            down2, step2 = _dominant_step(prof, col.period, frame.half, frame.radius, reach=0.95)
+            if step2 > max(2 * step, 0.1):
+                down, step = down2, step2
         decided["down"] = None if step < 0.03 else down
         figures["direction_step"] = step
         return decided["down"]
