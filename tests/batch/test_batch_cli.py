@@ -61,7 +61,7 @@ def test_json_is_one_document_and_problems_go_to_stderr(tmp_path, capsys, fake_r
     # second run: everything cached, earlier report kept, the new one numbered and announced
     code = main(["batch", str(parcel), "--out", str(out), "--json"])
     captured = capsys.readouterr()
-    assert code == 3 and json.loads(captured.out)["counts"]["cached"] == 3  # the rejection is cached too
+    assert code == 3 and json.loads(captured.out)["counts"]["cached"] == 3, captured.err  # the rejection is cached too
     assert "report-2.html" in captured.err and (out / "report.json").exists()
 
 
