@@ -37,6 +37,10 @@ _REDUCED_COLOUR = {1: cv2.IMREAD_COLOR, 2: cv2.IMREAD_REDUCED_COLOR_2,
                    4: cv2.IMREAD_REDUCED_COLOR_4, 8: cv2.IMREAD_REDUCED_COLOR_8}
 
 
+#: ISO base media file brands of HEIC/HEIF still images (ISO/IEC 23008-12)
+_HEIF_BRANDS = frozenset({b"heic", b"heix", b"heim", b"heis", b"hevc", b"hevx", b"mif1", b"msf1"})
+
+
 class PhotoRejected(Exception):
     """A photo that cannot give a reading; the message is the one-line reason."""
 
@@ -151,7 +155,16 @@ def load_photo(path: str | Path, max_pixels: int = MAX_PIXELS) -> LoadedPhoto:
     except Image.DecompressionBombError:
         raise PhotoRejected(f"image too large (more than {max_pixels / 1e6:.0f} megapixels)") from None
     except Exception:
+        if pillow_heif is None and data[4:8] == b"ftyp" and data[8:12] in _HEIF_BRANDS:
+            raise PhotoRejected("HEIC/HEIF photo, but the optional pillow-heif library that reads it "
+                                "is not installed") from None
         raise PhotoRejected("not an image file that can be read (JPEG, PNG, TIFF or HEIC expected)") from None
+    try:
+        frames = int(getattr(image, "n_frames", 1) or 1)
+    except Exception:  # a damaged animation: the decoder below says so
+        frames = 1
+    if fmt in ("GIF", "PNG", "WEBP") and frames > 1:  # (a phone's MPO JPEG has extra frames too: kept)
+        raise PhotoRejected(f"animated image ({frames} frames): one still photo of the eyepiece expected")
     if orientation in (5, 6, 7, 8):
         w, h = h, w
     if w * h > max_pixels:
