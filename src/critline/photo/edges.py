@@ -514,7 +514,7 @@ def _fit_group(p: _Profile, group, lo_limit, hi_limit, liquid_ri, prism_index):
     if len(stone_cands) >= 2 and stone_cands[-1] - stone_cands[0] > 3 * s1:
         # two steps found apart in the same window (a birefringent stone's pair)
         proposals.append(([stone_cands[0] + 0.5 * s1, stone_cands[-1] + 0.5 * s1], False))
-    if _structured(one, n1 - 8 * s1 - 0.002, n1 + 4 * s1 + 0.001):
+    if _structured(one, n1 - 8 * s1 - 0.002, window.values[-1]):
         # a pair fitted as one edge: one onset between the two and a blur that
         # spans both; split it symmetrically, or start from two slope peaks
         proposals.append(([n1 - s1, n1 + s1], False))
@@ -527,6 +527,11 @@ def _fit_group(p: _Profile, group, lo_limit, hi_limit, liquid_ri, prism_index):
             a, b = sorted(kept[:2])
             proposals.append(([a + 0.25 * s1, b + 0.25 * s1], False))
         proposals.append(([n1 - 0.6 * s1, n1 + 0.6 * s1], False))
+        # or a second, separate step elsewhere in the window that the lone term left out
+        for x, _ in _slope_peaks(p, window.values[0], window.values[-1], count=3):
+            if abs(x - n1) > max(3 * s1, 0.002):
+                proposals.append((sorted([n1, x + 0.5 * s1]), False))
+                break
     liquid_cands = [c.position for c in group
                     if c.position > n1 + 3 * s1 and _in_liquid_zone(c.position, liquid_ri, 0.004)]
     if liquid_cands:
