@@ -931,8 +931,9 @@ def analyse_profile(values, brightness, noise, *, liquid_ri=None, prism_index=1.
             figures["channel_onsets"] = {k: t.value for k, t in channels.items()}
             if light == "white":
                 flags.add("white_light")
-                edges = [white_light_value(e, channels) if e.kind == "stone" else e
-                         for e in edges]
+                from critline.photo.whitelight import reread_edges  # late: builds on this module
+
+                edges = reread_edges(edges, values, rgb, liquid_ri=liquid_ri, prism_index=prism_index)
     edges = sorted(edges, key=lambda e: e.value)
     return ProfileAnalysis(tuple(edges), status, light, tuple(sorted(flags)),
                            _finite_figures(figures))

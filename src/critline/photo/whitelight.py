@@ -1,0 +1,342 @@
+"""White light: the edge at 589.3 nm from the coloured fringe of the three camera channels.
+
+Why the channels disagree (Snell's law)
+---------------------------------------
+A ray meets the prism table at internal angle ``theta``.  The printed scale is
+graduated for the sodium D line: the graduation with value ``s`` sits where
+``N_D sin(theta) = s`` (``N_D`` = prism index at 589.3 nm).  At another
+wavelength ``lambda`` total reflection at the stone begins where
+``N(lambda) sin(theta) = n(lambda)`` (Snell's law, ``n`` the stone's index), so
+the edge of that wavelength lies at the scale value::
+
+    s(lambda) = N_D sin(theta_c) = n(lambda) * N_D / N(lambda)
+
+and conversely ``n(lambda) = s(lambda) * N(lambda) / N_D``.  At 589.3 nm the
+ratio is 1 and the scale reads the stone's index directly.  A dense-glass prism
+disperses more than most stones, so in white light the blue edge falls below
+the red one and the edge becomes a coloured fringe several thousandths wide.
+
+Method
+------
+1. Each camera channel's edge is fitted separately with the Fresnel edge model
+   of :mod:`critline.photo.edges` (onset of total reflection, Gaussian blur).
+   The channel integrates a band of wavelengths; its onset is assigned to the
+   band's *effective wavelength*: the centroid of the channel's spectral
+   weight, the CIE 1931 2-degree colour matching functions (CIE 15:2004, from
+   colour-science) taken to linear sRGB primaries (IEC 61966-2-1; negative
+   lobes cut away, as a sensor's sensitivities are non-negative) times CIE
+   illuminant A (an incandescent lamp, the usual white source).  On 1-D
+   profiles of the synthesizer (development seeds 0-59) the fitted channel
+   onset sits within 0.0004 of ``s(effective wavelength)``; that figure is
+   kept as a per-channel systematic term (:data:`CHANNEL_SYSTEMATIC`).
+2. Each channel onset becomes the stone's index at its effective wavelength,
+   ``n_c = s_c N(lambda_c) / N_D``, with the prism glass's Sellmeier formula.
+   The instrument file names no glass, so the default is the SCHOTT N-LASF31A
+   formula of the synthesizer's glass table (``critline/synth/data/glasses.csv``,
+   ``N_D`` = 1.8828, Abbe number 40.8); only the ratio ``N(lambda) / N_D``
+   is used, so a prism of slightly different index but similar dispersion
+   reads the same.
+3. A two-term Cauchy formula ``n(lambda) = n_D + B (1/lambda^2 - 1/589.3^2)``
+   is fitted to the channel indices by weighted least squares; ``n_D`` is the
+   reading.  With three channels one degree of freedom is left: a poor fit
+   (chi-square above its expectation) widens the uncertainty.
+4. The stone's dispersion ``n_F - n_C`` follows from ``B``; it is reported only
+   when three channels take part and its uncertainty is below a third of its
+   size, and always flagged approximate (two terms of Cauchy over 460-610 nm).
+
+Uncertainty: the channels' statistical parts and :data:`CHANNEL_SYSTEMATIC`
+propagated through the least squares, plus the edge fit's model floor (blur
+shape, sharpening), which moves all channels together and is therefore added
+once, plus :data:`MODEL_FLOOR` for the Cauchy form.
+
+The simple yellow-green boundary convention, computed for comparison: after
+white balance on the bright field (each channel scaled 0..1 between its level
+below and above the fringe) the eye reads a white-light edge where the fringe's
+yellow-green light turns on; we take the half-brightness point of the mean of
+the normalised red and green channels (the yellow light of the fringe).
+"""
+
+from __future__ import annotations
+
+import functools
+import math
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from critline.optics import SODIUM_D_NM
+
+#: Channel order of the profiles.
+CHANNELS = ("red", "green", "blue")
+#: Wavelength grid for the effective wavelengths, nanometres.
+WAVELENGTHS_NM = np.arange(380.0, 781.0, 5.0)
+#: Fraunhofer F and C lines (hydrogen), nanometres, for n_F - n_C.
+F_LINE_NM = 486.13
+C_LINE_NM = 656.27
+#: Systematic difference between a channel's fitted onset and the onset at its
+#: effective wavelength (measured on synthesizer development seeds 0-59: <= 0.0004).
+CHANNEL_SYSTEMATIC = 0.0003
+#: Model floor of the two-term Cauchy interpolation to 589.3 nm.
+MODEL_FLOOR = 0.0001
+#: Default prism glass (synthesizer glass table) when the instrument names none.
+DEFAULT_GLASS = "N-LASF31A"
+#: A dispersion estimate is reported only below this relative uncertainty.
+DISPERSION_MAX_RELATIVE = 1.0 / 3.0
+
+
+@functools.cache
+def channel_weights() -> np.ndarray:
+    """Spectral weight ``(3, len(WAVELENGTHS_NM))`` of the R, G, B channels under illuminant A.
+
+    CIE 1931 2-degree colour matching functions to linear sRGB (IEC 61966-2-1
+    matrix of colour-science), negative lobes clipped, times CIE illuminant A.
+    Each row sums to 1.
+    """
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        import colour
+    cmfs = colour.MSDS_CMFS["CIE 1931 2 Degree Standard Observer"]
+    illum = colour.SDS_ILLUMINANTS["A"]
+    to_rgb = np.asarray(colour.models.RGB_COLOURSPACE_sRGB.matrix_XYZ_to_RGB, dtype=float)
+    wl = np.asarray(cmfs.wavelengths, float)
+    xyz = np.stack([np.interp(WAVELENGTHS_NM, wl, np.asarray(cmfs.values, float)[:, i], left=0, right=0)
+                    for i in range(3)])
+    power = np.interp(WAVELENGTHS_NM, np.asarray(illum.wavelengths, float), np.asarray(illum.values, float))
+    w = np.clip(to_rgb @ xyz, 0.0, None) * power[None, :]
+    return w / w.sum(axis=1, keepdims=True)
+
+
+@functools.cache
+def effective_wavelengths() -> dict[str, float]:
+    """Centroid wavelength (nm) of each channel's spectral weight, see :func:`channel_weights`."""
+    w = channel_weights()
+    return {c: float(w[i] @ WAVELENGTHS_NM) for i, c in enumerate(CHANNELS)}
+
+
+def prism_ratio(wavelength_nm, glass=None):
+    """``N(lambda) / N_D`` of the prism glass (Sellmeier formula with an ``index`` method)."""
+    if glass is None:
+        from critline.synth.dispersion import glass as glass_table  # plain data table
+
+        glass = glass_table(DEFAULT_GLASS)
+    return np.asarray(glass.index(wavelength_nm), float) / float(glass.index(SODIUM_D_NM))
+
+
+@dataclass(frozen=True)
+class WhiteLightEstimate:
+    """The edge at 589.3 nm from the channel edges of a white-light fringe.
+
+    Attributes
+    ----------
+    value, uncertainty : float
+        Scale value of the edge at 589.3 nm (= the stone's index there) and its
+        standard uncertainty.
+    channels : dict
+        Per channel: ``wavelength`` (effective, nm), ``onset`` (scale value),
+        ``index`` (stone's index at that wavelength).
+    dispersion : float or None
+        Approximate ``n_F - n_C`` of the stone, None when not meaningful.
+    dispersion_uncertainty : float or None
+    chi2 : float
+        Weighted residual sum of squares of the Cauchy fit (0 with two channels).
+    """
+
+    value: float
+    uncertainty: float
+    channels: dict
+    dispersion: float | None = None
+    dispersion_uncertainty: float | None = None
+    chi2: float = 0.0
+    figures: dict = field(default_factory=dict)
+
+
+def estimate_at_sodium(onsets, *, common_floor=0.0, glass=None) -> WhiteLightEstimate | None:
+    """Cauchy fit of the channel edges, evaluated at 589.3 nm.
+
+    Parameters
+    ----------
+    onsets : dict
+        Channel name -> ``(onset, statistical uncertainty)`` on the 589.3 nm scale.
+    common_floor : float
+        Uncertainty common to all channels (the edge fit's model floor).
+    glass : object with ``index(wavelength_nm)``, optional
+        Prism glass; default :data:`DEFAULT_GLASS`.
+
+    Returns
+    -------
+    WhiteLightEstimate or None
+        None with fewer than two channels.
+    """
+    names = [c for c in CHANNELS if c in onsets]
+    if len(names) < 2:
+        return None
+    lam_eff = effective_wavelengths()
+    lam = np.array([lam_eff[c] for c in names])
+    s = np.array([float(onsets[c][0]) for c in names])
+    ratio = prism_ratio(lam, glass)
+    n = s * ratio
+    sig = np.hypot(np.array([float(onsets[c][1]) for c in names]), CHANNEL_SYSTEMATIC) * ratio
+    x = 1.0 / lam**2 - 1.0 / SODIUM_D_NM**2
+    design = np.stack([np.ones_like(x), x], axis=1) / sig[:, None]
+    cov = np.linalg.inv(design.T @ design)
+    coef = cov @ design.T @ (n / sig)
+    resid = (n - np.stack([np.ones_like(x), x], axis=1) @ coef) / sig
+    chi2 = float(resid @ resid)
+    dof = len(names) - 2
+    if dof > 0 and chi2 > dof:
+        cov = cov * (chi2 / dof)
+    value = float(coef[0])
+    unc = math.sqrt(float(cov[0, 0]) + common_floor**2 + MODEL_FLOOR**2)
+    fc = 1.0 / F_LINE_NM**2 - 1.0 / C_LINE_NM**2
+    disp, disp_unc = float(coef[1] * fc), float(math.sqrt(cov[1, 1]) * fc)
+    meaningful = dof > 0 and disp_unc < DISPERSION_MAX_RELATIVE * abs(disp)
+    channels = {c: {"wavelength": float(lam[i]), "onset": float(s[i]), "index": float(n[i])}
+                for i, c in enumerate(names)}
+    return WhiteLightEstimate(value, unc, channels,
+                              dispersion=disp if meaningful else None,
+                              dispersion_uncertainty=disp_unc if meaningful else None,
+                              chi2=chi2, figures={"cauchy_b_nm2": float(coef[1]), "dof": dof})
+
+
+def yellow_green_boundary(values, rgb, near, *, below=0.015, above=0.006, reach=0.02) -> float:
+    """The simple yellow-green boundary reading of a white-light fringe (for comparison).
+
+    Each channel is scaled 0..1 between its median level in ``[near - reach,
+    near - below]`` and in ``[near + above, near + reach]`` (white balance on
+    the bright field); the reading is where the mean of the normalised red and
+    green channels (the fringe's yellow light) first rises through one half,
+    searching upward from ``near - below``.  NaN when the levels are not seen.
+    """
+    values = np.asarray(values, float)
+    rgb = np.asarray(rgb, float)
+    lo = (values >= near - reach) & (values <= near - below)
+    hi = (values >= near + above) & (values <= near + reach)
+    if lo.sum() < 3 or hi.sum() < 3:
+        return float("nan")
+    norm = []
+    for ch in rgb[:2]:
+        dark, bright = float(np.median(ch[lo])), float(np.median(ch[hi]))
+        if not bright - dark > 0:
+            return float("nan")
+        norm.append((ch - dark) / (bright - dark))
+    yellow = 0.5 * (norm[0] + norm[1])
+    sel = np.flatnonzero((values >= near - below) & (values <= near + above))
+    if sel.size < 2:
+        return float("nan")
+    xs, ys = values[sel], yellow[sel]
+    up = np.flatnonzero((ys[:-1] < 0.5) & (ys[1:] >= 0.5))
+    if up.size == 0:
+        return float("nan")
+    i = up[-1]
+    return float(xs[i] + (0.5 - ys[i]) / (ys[i + 1] - ys[i]) * (xs[i + 1] - xs[i]))
+
+
+def channel_edges(values, rgb, *, liquid_ri=None, prism_index=1.88):
+    """Stone edges found separately in each channel with :func:`critline.photo.edges.analyse_profile`.
+
+    Returns a dict channel -> tuple of stone :class:`~critline.photo.edges.EdgeFit`
+    sorted by value (channels with no usable profile are left out).
+    """
+    from critline.photo.edges import analyse_profile  # late: edges calls this module
+
+    out = {}
+    for name, channel in zip(CHANNELS, np.asarray(rgb, float), strict=True):
+        if not np.all(np.isfinite(channel)):
+            continue
+        noise = max(float(np.median(np.abs(np.diff(channel)))) * 1.4826 / math.sqrt(2.0), 1e-5)
+        a = analyse_profile(values, channel, noise, liquid_ri=liquid_ri, prism_index=prism_index)
+        stones = tuple(e for e in a.edges if e.kind == "stone" and e.contrast >= 0.1)
+        if stones:
+            out[name] = stones
+    return out
+
+
+def _channel_parts(e):
+    """(independent, common) uncertainty parts of one channel edge fit."""
+    hidden = 0.5 * float(e.figures.get("hidden_by_clipping") or 0.0)
+    stat = float(e.figures.get("stat_uncertainty") or e.uncertainty)
+    floor = float(e.figures.get("floor") or 0.0)
+    return math.hypot(stat, hidden), math.sqrt(max(floor**2 - hidden**2, 0.0))
+
+
+def reread_edges(edges, values, rgb, *, liquid_ri=None, prism_index=1.88):
+    """Stone edges of a white-light profile re-read at 589.3 nm (hook of :mod:`critline.photo.edges`).
+
+    The luminance profile of a white-light fringe may split into two steps (blue
+    and red), so the number of stone edges is taken from the channels: the
+    count most channels agree on (green decides a tie); channels with that
+    count are paired with each other by order.  When fewer than two channels
+    agree the luminance edges are kept, their uncertainty widened by the
+    fringe (``white_light_method = 'luminance'``).
+    """
+    from critline.photo.edges import EdgeFit, white_light_value
+
+    per_channel = channel_edges(values, rgb, liquid_ri=liquid_ri, prism_index=prism_index)
+    counts = [len(v) for v in per_channel.values()]
+    others = [e for e in edges if e.kind != "stone"]
+    stones = [e for e in edges if e.kind == "stone"]
+    k = max(set(counts), key=lambda c: (counts.count(c), len(per_channel.get("green", ())) == c)) \
+        if counts else 0
+    agree = {c: v for c, v in per_channel.items() if len(v) == k}
+    order = np.argsort(np.asarray(values, float), kind="stable")
+    v_sorted = np.asarray(values, float)[order]
+    rgb_sorted = np.asarray(rgb, float)[:, order]
+    if len(agree) < 2 or k == 0 or k > 2:
+        kept = []
+        for e in stones:
+            near = {c: min(v, key=lambda f, e=e: abs(f.value - e.value)) for c, v in per_channel.items()}
+            fb = white_light_value(e, near)
+            b = yellow_green_boundary(v_sorted, rgb_sorted, e.value)
+            kept.append(EdgeFit(fb.value, fb.uncertainty, fb.kind, fb.contrast, fb.width,
+                                dict(fb.figures, white_light_method="luminance",
+                                     yellow_green_boundary=b if math.isfinite(b) else None)))
+        return kept + others
+    out = []
+    for i in range(k):
+        fits = {c: v[i] for c, v in agree.items()}
+        ref = fits.get("green", next(iter(fits.values())))
+        lum = min(stones, key=lambda e, ref=ref: abs(e.value - ref.value)) if stones else ref
+        out.append(white_light_edge(lum, fits, v_sorted, rgb_sorted, luminance_stones=len(stones)))
+    return out + others
+
+
+def white_light_edge(edge, fits, values, rgb_sorted, luminance_stones=1):
+    """One stone edge re-read at 589.3 nm from its channel edge fits (channel -> EdgeFit)."""
+    from critline.photo.edges import EdgeFit
+
+    parts = {c: _channel_parts(f) for c, f in fits.items()}
+    onsets = {c: (f.value, parts[c][0]) for c, f in fits.items()}
+    common = float(np.median([p[1] for p in parts.values()]))
+    est = estimate_at_sodium(onsets, common_floor=common)
+    boundary = yellow_green_boundary(values, rgb_sorted, edge.value)
+    figures = dict(edge.figures)
+    figures.update({
+        "white_light_method": "channel_cauchy",
+        "luminance_onset": edge.value,
+        "luminance_stone_edges": luminance_stones,
+        "yellow_green_boundary": boundary if math.isfinite(boundary) else None,
+        "channel_onsets": {c: v["onset"] for c, v in est.channels.items()},
+        "channel_wavelengths_nm": {c: v["wavelength"] for c, v in est.channels.items()},
+        "channel_indices": {c: v["index"] for c, v in est.channels.items()},
+        "cauchy_chi2": est.chi2,
+        "stone_dispersion_fc": est.dispersion,
+        "stone_dispersion_fc_uncertainty": est.dispersion_uncertainty,
+    })
+    width = float(np.median([f.width for f in fits.values()]))
+    contrast = float(np.median([f.contrast for f in fits.values()]))
+    return EdgeFit(value=est.value, uncertainty=est.uncertainty, kind="stone",
+                   contrast=contrast, width=width, figures=figures)
+
+
+def reading_summary(analysis) -> dict:
+    """White-light figures of an analysis for the reading's quality figures (hook of the reader)."""
+    out = []
+    for e in analysis.edges:
+        if e.kind != "stone" or "white_light_method" not in e.figures:
+            continue
+        out.append({k: e.figures.get(k) for k in (
+            "white_light_method", "luminance_onset", "yellow_green_boundary", "channel_onsets",
+            "channel_wavelengths_nm", "stone_dispersion_fc", "stone_dispersion_fc_uncertainty")})
+    return {"white_light_edges": out,
+            "dispersion_approximate": any(d.get("stone_dispersion_fc") is not None for d in out)}
