@@ -162,3 +162,14 @@ def test_field_frame_fallback_needs_three_and_is_fitted():
     cal_two = make_calibration(two, photos=(("a", "", ""), ("b", "", "")))
     with pytest.raises(CalibrationError, match="no field-frame map"):
         cal_two.field_to_ri(0.1, 0.01)
+
+
+def test_inconsistent_field_positions_give_no_field_frame_map():
+    pairs = simulate(REFERENCE_SET, offset=0.003, gain=0.008, noise=0.0002, seed=6)
+    rng = np.random.default_rng(6)
+    # field positions scattered by 0.1 field radii (about 0.03 RI): useless as a fallback
+    pairs = [dataclasses.replace(p, field_position=p.field_position + rng.normal(0, 0.1)) for p in pairs]
+    fit = fit_calibration(pairs)
+    assert fit.field_map is None
+    assert any("field positions are inconsistent" in w for w in fit.warnings)
+    assert fit.model == "offset+gain"  # the scale map is unaffected

@@ -15,7 +15,7 @@ Two maps are fitted on the same pairs:
   references, offset and gain three, a smooth (quadratic) correction five
   spread over the range and the support of Akaike's criterion.
 * the **field-frame map** (the fallback when graduations are not found in a
-  photo) gives ``ri = d0 + d1 f + d2 f**2 (+ d3 f**3)`` from the edge's signed
+  photo) gives ``ri = d0 + d1 f (+ d2 f**2)`` from the edge's signed
   position along the scale axis relative to the field circle, ``f`` in field
   radii.  It needs three references and is marked lower precision.
 
@@ -44,8 +44,11 @@ SCALE_MODELS = {"offset": 1, "offset+gain": 2, "smooth": 3}
 #: references needed before a scale-map kind may be used
 SCALE_MODEL_MIN_REFS = {"offset": 2, "offset+gain": 3, "smooth": 5}
 #: field-frame map degrees (polynomial in field radii); degree d needs d + 1 references
-FIELD_MAX_DEGREE = 3
+FIELD_MAX_DEGREE = 2
 FIELD_MIN_REFS = 3
+#: a field-frame map that predicts left-out references worse than this (RI) is not kept:
+#: the field positions are too inconsistent to be worth a fallback
+FIELD_MAX_LOO = 0.01
 #: the known RIs must span at least this much (RI units), else "all at one end"
 MIN_SPAN = 0.08
 #: a reference is suspect when it sits this many sigmas AND this far (RI) from
@@ -449,6 +452,10 @@ def _fit_field(pairs, step) -> tuple[PolynomialMap | None, str, np.ndarray | Non
             m = fit_polynomial(f[keep], y[keep], s[keep], best + 1, additive=False, kind="",
                                centre=centre, half_span=half)
             loo[i] = float(m.value(f[i])) - y[i]
+        loo_rms = float(np.sqrt(np.mean(loo**2)))
+        if loo_rms > FIELD_MAX_LOO:
+            return None, (f"no field-frame fallback: the references' field positions are inconsistent "
+                          f"(left-out RMS {loo_rms:.4f} RI with {fits[best].kind})"), None
     return fits[best], reason, loo
 
 
