@@ -128,7 +128,7 @@ def run(args) -> int:
     refs = SMALL_SET if args.small else REFERENCES
     lo, hi = min(refs.values()), max(refs.values())
     err_cal, err_nominal, err_field, err_exact = [], [], [], []
-    models, failed, extrapolated, suspects = {}, 0, 0, 0
+    models, failed, extrapolated, suspects, with_field = {}, 0, 0, 0, 0
     z_cal = []
     seed = PHOTO_SEED0
     for k in range(args.setups):
@@ -154,6 +154,7 @@ def run(args) -> int:
             print(f"setup {k}: no calibration ({exc})", file=sys.stderr)
             continue
         models[fit.model] = models.get(fit.model, 0) + 1
+        with_field += fit.field_map is not None
         cal = make_calibration(fit, photos=tuple((p.label, "", p.label) for p in pairs))
         # field-position sigma: the reading's scale sigma carried through the field map's slope
         for _ in range(args.unknowns):
@@ -189,6 +190,7 @@ def run(args) -> int:
         print(f"photos {measure.total}, rejected or not one stone edge {measure.rejected} "
               f"({100 * measure.rejected / max(measure.total, 1):.1f} %), read time {measure.seconds:.1f} s")
     print(f"calibrations failed {failed}; models chosen {models}; unknowns flagged extrapolated {extrapolated}")
+    print(f"setups with a field-frame map (kept only when its left-out error <= 0.01): {with_field}")
     print(f"reference readings named suspect and excluded (as the user would, then refit): {suspects}")
     rows = [("uncalibrated (nominal scale value)", err_nominal, None),
             ("calibrated", err_cal, 0.001),
