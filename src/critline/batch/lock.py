@@ -159,20 +159,18 @@ def holder(folder: str | Path) -> int | None:
         os.close(fd)
 
 
-def hold_for_command(folder: str | Path) -> OutputLock:
-    """Lock ``folder`` until the running command finishes (its click context closes).
+def hold_for_command(folder: str | Path, ctx=None) -> OutputLock:
+    """Lock ``folder`` until the running command finishes.
 
-    Outside a command (a plain function call) the lock is released when this
-    process exits.
+    ``ctx`` is the command's (typer/click) context: the lock is released when
+    it closes, also when the command fails.  Without one the lock is released
+    when this process exits.
     """
-    import atexit
-
-    import click
-
     lock = OutputLock(folder).acquire()
-    ctx = click.get_current_context(silent=True)
-    if ctx is not None:
+    if ctx is not None and hasattr(ctx, "call_on_close"):
         ctx.call_on_close(lock.release)
     else:
+        import atexit
+
         atexit.register(lock.release)
     return lock

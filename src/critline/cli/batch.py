@@ -114,6 +114,7 @@ def report_problems(problems) -> None:
 
 @app.command(epilog=cautions.HELP_EPILOG)
 def batch(
+    ctx: typer.Context,
     folder: Path = typer.Argument(..., help="Folder with one subfolder per stone (photos directly in it: "
                                   "one stone), or a manifest .csv with the columns stone,photo and "
                                   "optionally rotation,polariser,sg (paths relative to the manifest)."),
@@ -144,6 +145,9 @@ def batch(
 
     inst, cal = load_setup(calibration, instrument)
     out_dir = out if out is not None else default_out(folder)
+    from critline.batch.lock import hold_for_command
+
+    hold_for_command(out_dir, ctx)  # one batch per output folder; released when the command ends
     console = _stderr_console()
     progress = None
     task_id = None
@@ -204,6 +208,7 @@ def batch(
 
 @app.command(epilog=cautions.HELP_EPILOG)
 def watch(
+    ctx: typer.Context,
     folder: Path = typer.Argument(..., help="Folder the phone syncs into; each subfolder is one stone."),
     calibration: Path | None = typer.Option(None, "--calibration", help="Calibration file (from `critline calibrate`)."),
     instrument: Path | None = typer.Option(None, "--instrument", help="Instrument file (TOML) describing the scale."),
@@ -229,6 +234,9 @@ def watch(
         raise UsageError(f"{folder}: not a folder")
     inst, cal = load_setup(calibration, instrument)
     out_dir = out if out is not None else default_out(folder)
+    from critline.batch.lock import hold_for_command
+
+    hold_for_command(out_dir, ctx)
     code = watch_folder(folder, calibration=cal, instrument=inst, out_dir=out_dir, interval=interval,
                         max_idle=max_idle, once=once, name_pattern=name_pattern, overwrite=overwrite,
                         overlays=not no_overlays,
