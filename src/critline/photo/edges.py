@@ -441,6 +441,8 @@ def _structured(trial: _Trial, lo, hi, threshold=3.5):
         return False
     k = int(np.clip(round(fit.sigma / window.spacing), 2, max(r.size // 2, 2)))
     sums = np.convolve(r, np.ones(k), mode="valid") / math.sqrt(k)
+    # the largest of many noise-only sums grows like sqrt(2 ln M): allow for it
+    threshold = max(threshold, math.sqrt(2.0 * math.log(max(sums.size, 2))) + 1.0)
     return bool(np.max(np.abs(sums)) > threshold)
 
 
@@ -929,11 +931,16 @@ def analyse_profile(values, brightness, noise, *, liquid_ri=None, prism_index=1.
             light, light_figures = _light(channels)
             figures.update(light_figures)
             figures["channel_onsets"] = {k: t.value for k, t in channels.items()}
+            per_channel = None
+            if light in ("white", "unknown"):  # the white-light reading (critline.photo.whitelight)
+                from critline.photo import whitelight  # late: builds on this module
+
+                per_channel = whitelight.channel_edges(values, rgb, liquid_ri=liquid_ri, prism_index=prism_index)
+                light = "white" if light == "white" else whitelight.fringe_light(per_channel)
             if light == "white":
                 flags.add("white_light")
-                from critline.photo.whitelight import reread_edges  # late: builds on this module
-
-                edges = reread_edges(edges, values, rgb, liquid_ri=liquid_ri, prism_index=prism_index)
+                edges = whitelight.reread_edges(edges, values, rgb, liquid_ri=liquid_ri,
+                                                prism_index=prism_index, per_channel=per_channel)
     edges = sorted(edges, key=lambda e: e.value)
     return ProfileAnalysis(tuple(edges), status, light, tuple(sorted(flags)),
                            _finite_figures(figures))

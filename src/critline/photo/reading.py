@@ -28,6 +28,8 @@ from critline.photo.graduations import (
 )
 from critline.photo.load import LoadedPhoto, PhotoRejected, decode, load_photo
 from critline.photo.profile import Profile, brightness_profile
+from critline.photo.whitelight import calibration_light_refusal
+from critline.photo.whitelight import reading_summary as white_light_summary
 from critline.readings import Edge, PhotoReading, Quality, rejected
 
 #: Field diameter (pixels) wanted in the working image; decoding is reduced while it stays above.
@@ -276,6 +278,9 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
             raise PhotoRejected(f"edge analysis failed ({type(exc).__name__}: {exc})") from None
     evidence["profile"] = (values, bright)
     evidence["analysis"] = analysis
+    refusal = calibration_light_refusal(calibration, getattr(analysis, "light", "unknown"))
+    if refusal:
+        raise PhotoRejected(refusal)
     if "direction_undetermined" in flags and analysis.edges:
         if max(float(getattr(e, "contrast", 1.0)) for e in analysis.edges) >= LOW_CONTRAST:
             raise PhotoRejected("scale direction undetermined (no clear dark side) but an edge-like feature found")
@@ -335,6 +340,8 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
     light = getattr(analysis, "light", "unknown")
     if light == "white" and "white_light" not in flags:
         flags.append("white_light")
+    if light == "white":
+        figures.update(white_light_summary(analysis))  # 589.3 nm reading, yellow-green boundary beside it
     status = analysis.status
     figures["profile_top"] = top
     quality = Quality(tuple(dict.fromkeys(flags)), figures)
@@ -381,6 +388,9 @@ def _no_graduations(photo, name, reason, figures, flags, calibration, frame, cir
         analysis = _analyse(ri_axis, bright, noise, inst.liquid_ri, rgb_p)
     except (ValueError, FloatingPointError, np.linalg.LinAlgError, RuntimeError):
         return rejected(name, photo.sha256, reason)
+    refusal = calibration_light_refusal(calibration, getattr(analysis, "light", "unknown"))
+    if refusal:
+        return rejected(name, photo.sha256, refusal)
     slope = np.gradient(ri_axis, fpos)
     edges = []
     for e in analysis.edges:

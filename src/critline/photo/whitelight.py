@@ -61,7 +61,7 @@ from __future__ import annotations
 import functools
 import math
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -81,6 +81,11 @@ CHANNEL_SYSTEMATIC = 0.0003
 MODEL_FLOOR = 0.0001
 #: Default prism glass (synthesizer glass table) when the instrument names none.
 DEFAULT_GLASS = "N-LASF31A"
+#: Stretch of the shoulder taken as hidden when a channel is clipped right above its
+#: onset (over-exposure by 1.5-2x hides 0.003-0.008, see critline.photo.edges).
+CLIPPED_HIDDEN = 0.004
+#: Smallest spread of the channel edges taken as a coloured fringe (scale units).
+FRINGE_MIN = 0.0015
 #: A dispersion estimate is reported only below this relative uncertainty.
 DISPERSION_MAX_RELATIVE = 1.0 / 3.0
 
@@ -235,6 +240,11 @@ def yellow_green_boundary(values, rgb, near, *, below=0.015, above=0.006, reach=
 def channel_edges(values, rgb, *, liquid_ri=None, prism_index=1.88):
     """Stone edges found separately in each channel with :func:`critline.photo.edges.analyse_profile`.
 
+    Each channel is first scaled so that its top (99.8th percentile) is 1: a
+    channel clipped by over-exposure and then scaled by the phone's white
+    balance plateaus below full scale, and the edge analysis recognises a
+    clipped plateau only near full scale.
+
     Returns a dict channel -> tuple of stone :class:`~critline.photo.edges.EdgeFit`
     sorted by value (channels with no usable profile are left out).
     """
@@ -244,23 +254,74 @@ def channel_edges(values, rgb, *, liquid_ri=None, prism_index=1.88):
     for name, channel in zip(CHANNELS, np.asarray(rgb, float), strict=True):
         if not np.all(np.isfinite(channel)):
             continue
+        top = float(np.percentile(channel, 99.8))
+        if not top > 0:
+            continue
+        channel = channel / top
         noise = max(float(np.median(np.abs(np.diff(channel)))) * 1.4826 / math.sqrt(2.0), 1e-5)
         a = analyse_profile(values, channel, noise, liquid_ri=liquid_ri, prism_index=prism_index)
-        stones = tuple(e for e in a.edges if e.kind == "stone" and e.contrast >= 0.1)
+        stones = tuple(_mark_clipped(e, values, channel) for e in a.edges
+                       if e.kind == "stone" and e.contrast >= 0.1)
         if stones:
             out[name] = stones
     return out
 
 
-def _channel_parts(e):
-    """(independent, common) uncertainty parts of one channel edge fit."""
-    hidden = 0.5 * float(e.figures.get("hidden_by_clipping") or 0.0)
+def _mark_clipped(edge, values, channel):
+    """The edge with figure ``channel_clipped``: the channel sits at its top right above the onset.
+
+    Over-exposure clips a channel before the phone's white balance scales it,
+    so the plateau lies wherever the channel's top is: samples exactly at the
+    channel's 90th percentile (8-bit values at the clip level) over at least 30 % of
+    the stretch just above the onset.  A clipped corner leaves the onset biased low.
+    """
+    values = np.asarray(values, float)
+    reach = max(4.0 * edge.width, 0.012)
+    above = (values > edge.value) & (values <= edge.value + reach)
+    top = float(np.percentile(channel, 90))  # a clipped field sits at one exact level
+    at_top = np.abs(channel[above] - top) <= 1e-6 * abs(top)
+    clipped = bool(np.count_nonzero(at_top) >= 3 and np.mean(at_top) >= 0.3)
+    return replace(edge, figures=dict(edge.figures, channel_clipped=clipped))
+
+
+def fringe_light(per_channel) -> str:
+    """``'white'`` when the channels' strongest edges are displaced in wavelength order, else ``'unknown'``.
+
+    A coloured fringe puts the channel edges in the order of their effective
+    wavelengths (all rising or all falling from blue to red) and spreads them by
+    more than :data:`FRINGE_MIN` and four statistical standard deviations.
+    """
+    firsts = {c: max(v, key=lambda e: e.contrast) for c, v in per_channel.items()}
+    names = [c for c in CHANNELS if c in firsts]
+    if len(names) < 2:
+        return "unknown"
+    s = [firsts[c].value for c in names]
+    u = [float(firsts[c].figures.get("stat_uncertainty") or firsts[c].uncertainty) for c in names]
+    steps = np.diff(s)
+    spread = s[0] - s[-1]
+    if abs(spread) > max(FRINGE_MIN, 4 * math.hypot(u[0], u[-1])) and \
+            np.all(np.sign(steps) == np.sign(steps[0])):
+        return "white"
+    return "unknown"
+
+
+def _channel_parts(e, overexposed=False):
+    """(independent, common) uncertainty parts of one channel edge fit.
+
+    ``overexposed``: the luminance or another channel is clipped at this edge;
+    the channel's own corner may then be flattened without reaching an exact
+    clip level, so it takes the clipping term too.
+    """
+    hidden = float(e.figures.get("hidden_by_clipping") or 0.0)
+    if e.figures.get("channel_clipped") or overexposed:
+        hidden = max(hidden, CLIPPED_HIDDEN)
+    hidden *= 0.5
     stat = float(e.figures.get("stat_uncertainty") or e.uncertainty)
     floor = float(e.figures.get("floor") or 0.0)
     return math.hypot(stat, hidden), math.sqrt(max(floor**2 - hidden**2, 0.0))
 
 
-def reread_edges(edges, values, rgb, *, liquid_ri=None, prism_index=1.88):
+def reread_edges(edges, values, rgb, *, liquid_ri=None, prism_index=1.88, per_channel=None):
     """Stone edges of a white-light profile re-read at 589.3 nm (hook of :mod:`critline.photo.edges`).
 
     The luminance profile of a white-light fringe may split into two steps (blue
@@ -272,7 +333,8 @@ def reread_edges(edges, values, rgb, *, liquid_ri=None, prism_index=1.88):
     """
     from critline.photo.edges import EdgeFit, white_light_value
 
-    per_channel = channel_edges(values, rgb, liquid_ri=liquid_ri, prism_index=prism_index)
+    if per_channel is None:
+        per_channel = channel_edges(values, rgb, liquid_ri=liquid_ri, prism_index=prism_index)
     counts = [len(v) for v in per_channel.values()]
     others = [e for e in edges if e.kind != "stone"]
     stones = [e for e in edges if e.kind == "stone"]
@@ -295,6 +357,10 @@ def reread_edges(edges, values, rgb, *, liquid_ri=None, prism_index=1.88):
     out = []
     for i in range(k):
         fits = {c: v[i] for c, v in agree.items()}
+        clean = {c: f for c, f in fits.items()
+                 if not (f.figures.get("hidden_by_clipping") or f.figures.get("channel_clipped"))}
+        if len(clean) >= 2:
+            fits = clean  # a clipped corner biases a channel's onset low
         ref = fits.get("green", next(iter(fits.values())))
         lum = min(stones, key=lambda e, ref=ref: abs(e.value - ref.value)) if stones else ref
         out.append(white_light_edge(lum, fits, v_sorted, rgb_sorted, luminance_stones=len(stones)))
@@ -305,7 +371,9 @@ def white_light_edge(edge, fits, values, rgb_sorted, luminance_stones=1):
     """One stone edge re-read at 589.3 nm from its channel edge fits (channel -> EdgeFit)."""
     from critline.photo.edges import EdgeFit
 
-    parts = {c: _channel_parts(f) for c, f in fits.items()}
+    overexposed = bool(edge.figures.get("hidden_by_clipping")) or \
+        any(f.figures.get("channel_clipped") or f.figures.get("hidden_by_clipping") for f in fits.values())
+    parts = {c: _channel_parts(f, overexposed) for c, f in fits.items()}
     onsets = {c: (f.value, parts[c][0]) for c, f in fits.items()}
     common = float(np.median([p[1] for p in parts.values()]))
     est = estimate_at_sodium(onsets, common_floor=common)
@@ -320,6 +388,8 @@ def white_light_edge(edge, fits, values, rgb_sorted, luminance_stones=1):
         "channel_wavelengths_nm": {c: v["wavelength"] for c, v in est.channels.items()},
         "channel_indices": {c: v["index"] for c, v in est.channels.items()},
         "cauchy_chi2": est.chi2,
+        "channels_clipped": sorted(c for c, f in fits.items() if f.figures.get("channel_clipped")),
+        "overexposed": overexposed,
         "stone_dispersion_fc": est.dispersion,
         "stone_dispersion_fc_uncertainty": est.dispersion_uncertainty,
     })
@@ -335,8 +405,25 @@ def reading_summary(analysis) -> dict:
     for e in analysis.edges:
         if e.kind != "stone" or "white_light_method" not in e.figures:
             continue
-        out.append({k: e.figures.get(k) for k in (
+        out.append({"value": e.value, "uncertainty": e.uncertainty} | {k: e.figures.get(k) for k in (
             "white_light_method", "luminance_onset", "yellow_green_boundary", "channel_onsets",
             "channel_wavelengths_nm", "stone_dispersion_fc", "stone_dispersion_fc_uncertainty")})
     return {"white_light_edges": out,
             "dispersion_approximate": any(d.get("stone_dispersion_fc") is not None for d in out)}
+
+
+def calibration_light_refusal(calibration, photo_light: str) -> str | None:
+    """Reason to refuse a calibration taken in another light than the photo, else None.
+
+    A white-light calibration absorbs the white-light reading's own offsets; on a
+    sodium photo (or the other way round) it would shift the reading by an
+    amount nobody measured, so the reading is rejected with this reason.  A
+    photo whose light could not be told (``'unknown'``) is not refused.
+    """
+    cal_light = getattr(calibration, "light", None)
+    if calibration is None or cal_light is None or photo_light not in ("monochromatic", "white"):
+        return None
+    if cal_light == photo_light:
+        return None
+    return (f"calibration {getattr(calibration, 'id', '?')} was made in {cal_light} light but the photo "
+            f"shows {photo_light} light: use a calibration made in the same light")

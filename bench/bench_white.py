@@ -1,0 +1,129 @@
+"""White light: the reader's 589.3 nm reading of a coloured fringe against the yellow-green boundary.
+
+A seeded set of synthesizer photos in white light (critline.synth.random_scene
+with ``light='white'``: CIE illuminant A, the CIE 1931 colour matching
+functions as the camera's response, dispersion of the N-LASF31A prism, the
+contact liquid and the stone) across the whole envelope of design.md, read by
+critline.photo.read_photo without a calibration.  Every true stone edge below
+the liquid is matched with the nearest reported stone edge (within 0.02);
+the error is against the stone's index at 589.3 nm from the truth sidecar.
+
+Beside it, on the same edges: the simple yellow-green boundary convention
+(critline.photo.whitelight.yellow_green_boundary: half-brightness point of the
+mean of the white-balanced red and green channels), and the luminance onset
+that the reader gave before the white-light method.
+
+The default seed range 300000-300119 is HELD OUT: the white-light method was
+developed on 1-D profiles of seeds 0-59 and on photos of seeds below 1000 only;
+nothing was tuned on this range.
+
+    python bench/bench_white.py                      # held-out set
+    python bench/bench_white.py --first 0 --count 40 # development range
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+import tempfile
+from concurrent.futures import ProcessPoolExecutor
+from pathlib import Path
+
+import numpy as np
+
+
+def _render(args):
+    seed, folder, max_mp = args
+    from critline.synth import random_scene, write_photo
+
+    scene = random_scene(seed, light="white")
+    if max_mp and scene.width * scene.height / 1e6 > max_mp:
+        scene = random_scene(seed, light="white", megapixels=max_mp)
+    path = Path(folder) / f"white-{seed}.jpg"
+    if not path.with_suffix(".json").exists():
+        write_photo(path, scene, seed)
+    return str(path)
+
+
+def _read(path):
+    from critline.photo import read_photo
+
+    return path, read_photo(path).to_json()
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--first", type=int, default=300000)
+    ap.add_argument("--count", type=int, default=120)
+    ap.add_argument("--max-mp", type=float, default=6.0, help="frames drawn larger are re-drawn at this size")
+    ap.add_argument("--workers", type=int, default=2)
+    ap.add_argument("--folder", type=Path, default=None, help="keep the photos here (reused if present)")
+    ap.add_argument("--verbose", action="store_true")
+    args = ap.parse_args(argv)
+    folder = args.folder or Path(tempfile.mkdtemp(prefix="critline-white-"))
+    folder.mkdir(parents=True, exist_ok=True)
+    seeds = list(range(args.first, args.first + args.count))
+    with ProcessPoolExecutor(args.workers) as ex:
+        paths = list(ex.map(_render, [(s, str(folder), args.max_mp) for s in seeds]))
+    with ProcessPoolExecutor(args.workers) as ex:
+        results = list(ex.map(_read, paths))
+
+    err, err_yg, err_lum, z, missed, lights, rejected, no_dispersion = [], [], [], [], 0, {}, 0, 0
+    dispersion_err = []
+    for path, res in results:
+        truth = json.loads(Path(path).with_suffix(".json").read_text())
+        lights[res["light"]] = lights.get(res["light"], 0) + 1
+        if res["status"] == "rejected":
+            rejected += 1
+        white = {round(d["value"], 6): d for d in res["quality"].get("white_light_edges", [])}
+        stones = [e for e in res["edges"] if e["kind"] == "stone"]
+        for te in truth["edges"]:
+            if te["kind"] != "stone" or truth["status"] != "ok":
+                continue
+            best = min(stones, key=lambda e: abs(e["ri"] - te["ri"])) if stones else None
+            if best is None or abs(best["ri"] - te["ri"]) > 0.02:
+                missed += 1
+                continue
+            e = best["ri"] - te["ri"]
+            err.append(e)
+            z.append(abs(e) / best["uncertainty"])
+            d = min(white.values(), key=lambda d: abs(d["value"] - best["ri"]), default=None)
+            if d is not None and abs(d["value"] - best["ri"]) < 0.003:
+                if d.get("yellow_green_boundary") is not None:
+                    err_yg.append(d["yellow_green_boundary"] - te["ri"])
+                if d.get("luminance_onset") is not None:
+                    err_lum.append(d["luminance_onset"] - te["ri"])
+                if d.get("stone_dispersion_fc") is None:
+                    no_dispersion += 1
+            if args.verbose:
+                print(Path(path).name, f"true {te['ri']:.4f} read {best['ri']:.4f} +- {best['uncertainty']:.4f}",
+                      res["light"], ",".join(res["quality"]["flags"]), file=sys.stderr)
+
+    def line(name, xs, target=None):
+        a = np.abs(np.asarray(xs))
+        if a.size == 0:
+            print(f"{name}: no edges")
+            return
+        tgt = f" (target <= {target})" if target else ""
+        print(f"{name}: n={a.size} median={np.median(a):.5f} p95={np.percentile(a, 95):.5f}{tgt} "
+              f"max={a.max():.5f} mean signed={np.mean(xs):+.5f}")
+
+    print(f"photos: {len(results)} (seeds {args.first}-{args.first + args.count - 1}, white light, "
+          f"held out unless stated; frames <= {args.max_mp} MP)")
+    print(f"light detected: {lights}; rejected: {rejected}; true stone edges missed: {missed}")
+    line("589.3 nm reading (channel edges + Cauchy), abs error", err, 0.002)
+    line("yellow-green boundary convention, abs error     ", err_yg)
+    line("luminance onset (no white-light method), abs error", err_lum)
+    if z:
+        za = np.asarray(z)
+        print(f"error within 2 x stated uncertainty: {np.mean(za <= 2):.1%} of {za.size}")
+    if err and err_yg:
+        print(f"p95 ratio yellow-green / 589.3 nm reading: "
+              f"{np.percentile(np.abs(err_yg), 95) / np.percentile(np.abs(err), 95):.1f}")
+    print(f"edges without a meaningful dispersion estimate: {no_dispersion}")
+    _ = dispersion_err
+
+
+if __name__ == "__main__":
+    main()
