@@ -441,8 +441,6 @@ def _structured(trial: _Trial, lo, hi, threshold=3.5):
         return False
     k = int(np.clip(round(fit.sigma / window.spacing), 2, max(r.size // 2, 2)))
     sums = np.convolve(r, np.ones(k), mode="valid") / math.sqrt(k)
-    # the largest of many noise-only sums grows like sqrt(2 ln M): allow for it
-    threshold = max(threshold, math.sqrt(2.0 * math.log(max(sums.size, 2))) + 1.0)
     return bool(np.max(np.abs(sums)) > threshold)
 
 
