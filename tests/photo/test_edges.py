@@ -216,6 +216,38 @@ def test_liquid_line_above_a_stone_edge():
 
 
 @pytest.mark.parametrize("liquid_ri", [1.79, None])
+@pytest.mark.parametrize(("lower_step", "seed"), [(0.03, 12), (0.03, 13), (0.04, 12)])
+def test_faint_step_beside_the_liquid_line_is_not_a_stone_edge(liquid_ri, lower_step, seed):
+    # An isotropic stone (spinel, about 1.712-1.718: GIA Gem Reference Guide, from memory)
+    # and a liquid line seen as two faint close steps (contrast about 0.04 each).
+    # Without a polariser each ray of a stone takes about half the bright level
+    # (Fresnel equations, unpolarised light), so a step of contrast ~0.04 is no stone
+    # edge: the reading must stay one stone edge, with the liquid's edge above it.
+    values = scale(1.30, 1.82, 2400)
+    y = make_profile(values, [1.712], liquid=1.788, liquid_step=0.04, noise=0.002, seed=seed)
+    y = y + make_profile(values, [], low=0.0, high=0.0, liquid=1.777, liquid_step=lower_step,
+                         noise=0.0)
+    a = analyse_profile(values, y, 0.002, liquid_ri=liquid_ri)
+    assert a.status == "ok"
+    (edge,) = stones(a)
+    assert abs(edge.value - 1.712) < 0.001
+    assert [e.kind for e in a.edges] == ["stone", "liquid"]
+    assert 1.774 < a.edges[1].value < 1.791
+
+
+def test_true_pair_below_the_liquid_line_stays_two_stone_edges():
+    # corundum without polariser, omega 1.770 / epsilon 1.762 (GIA Gem Reference Guide,
+    # from memory): two large steps just below the liquid line stay stone edges
+    values = scale(1.30, 1.82, 2400)
+    y = make_profile(values, [1.762, 1.770], liquid=1.790, liquid_step=0.04, sigma=0.0008,
+                     noise=0.002, seed=5)
+    a = analyse_profile(values, y, 0.002, liquid_ri=1.79)
+    assert a.status == "ok"
+    assert [round(e.value, 2) for e in stones(a)] == [1.76, 1.77]
+    assert a.edges[-1].kind == "liquid"
+
+
+@pytest.mark.parametrize("liquid_ri", [1.79, None])
 def test_over_the_limit_dark_up_to_the_liquid_edge(liquid_ri):
     values = scale()
     a = analyse_profile(values, make_profile(values, [1.79], seed=7), 0.003, liquid_ri=liquid_ri)

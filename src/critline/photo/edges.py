@@ -82,6 +82,9 @@ SIGMA_MAX = 0.010
 #: Smallest step accepted, relative to the bright level (stone edges / liquid edge).
 MIN_CONTRAST_STONE = 0.06
 MIN_CONTRAST_LIQUID = 0.02
+#: How far below the liquid's zone a faint step is still taken as part of the liquid
+#: line (scale units; the line's lower shoulder and a mis-scaled instrument's offset).
+LIQUID_LINE_REACH = 0.010
 #: Detection threshold of the step filter, in standard deviations of the noise.
 Z_DETECT = 6.0
 #: Uncertainty floor for model mismatch (blur shape, sharpening, tone curve),
@@ -699,9 +702,20 @@ def _classify(terms: list[_Term], liquid_ri):
     be and is either faint next to a stone edge below it (the liquid line) or the
     only step.  Alone and strong (dark all the way up to it) it means over the
     limit; alone and faint it is the liquid line on a field with no stone edge.
+
+    A step fainter than any stone edge (contrast below ``MIN_CONTRAST_STONE``) at
+    or just below where the liquid may be is part of the liquid line: without a
+    polariser each ray of a stone takes about half the bright level, so a stone
+    edge is a large step, while the liquid line is faint and often shows as two
+    close steps (its film's own reflections).  Unless a stronger step already is
+    the liquid's edge (over the limit), the strongest such step is taken as the
+    liquid's edge; the others are dropped.
     """
     flags: list[str] = []
     terms = sorted(terms, key=lambda t: t.value)
+    line_parts = [t for t in terms if t.contrast < MIN_CONTRAST_STONE
+                  and _in_liquid_zone(t.value, liquid_ri, LIQUID_LINE_REACH + 3 * t.uncertainty)]
+    terms = [t for t in terms if not any(t is q for q in line_parts)]
     liquid = None
     if terms:
         top = terms[-1]
@@ -709,8 +723,10 @@ def _classify(terms: list[_Term], liquid_ri):
         if near and (len(terms) == 1 or top.contrast < FAINT_LIQUID):
             liquid = top
             terms = terms[:-1]
-            if liquid_ri is None:
-                flags.append("liquid_assumed")
+    if liquid is None and line_parts:
+        liquid = max(line_parts, key=lambda t: t.contrast)
+    if liquid is not None and liquid_ri is None:
+        flags.append("liquid_assumed")
     if len(terms) > 2:
         flags.append("extra_steps")
         keep = sorted(terms, key=lambda t: -t.contrast)[:2]
@@ -930,11 +946,13 @@ def analyse_profile(values, brightness, noise, *, liquid_ri=None, prism_index=1.
             figures.update(light_figures)
             figures["channel_onsets"] = {k: t.value for k, t in channels.items()}
             per_channel = None
-            if light in ("white", "unknown"):  # the white-light reading (critline.photo.whitelight)
-                from critline.photo import whitelight  # late: builds on this module
+            from critline.photo import whitelight  # late: builds on this module
 
+            shift = max((abs(v) for k, v in light_figures.items() if k.startswith("shift_")), default=0.0)
+            if light in ("white", "unknown") or shift > whitelight.FRINGE_MIN:
+                # the white-light reading; its channel edges may show a fringe the coarse check missed
                 per_channel = whitelight.channel_edges(values, rgb, liquid_ri=liquid_ri, prism_index=prism_index)
-                light = "white" if light == "white" else whitelight.fringe_light(per_channel)
+                light = "white" if "white" in (light, whitelight.fringe_light(per_channel)) else light
             if light == "white":
                 flags.add("white_light")
                 edges = whitelight.reread_edges(edges, values, rgb, liquid_ri=liquid_ri,
