@@ -70,7 +70,7 @@ def main(argv=None):
         results = list(ex.map(_read, paths))
 
     err, err_yg, err_lum, z, missed, lights, rejected, no_dispersion = [], [], [], [], 0, {}, 0, 0
-    dispersion_err = []
+    dispersion_err, err_method, err_other, err_over, err_exposed = [], [], [], [], []
     for path, res in results:
         truth = json.loads(Path(path).with_suffix(".json").read_text())
         lights[res["light"]] = lights.get(res["light"], 0) + 1
@@ -89,6 +89,11 @@ def main(argv=None):
             err.append(e)
             z.append(abs(e) / best["uncertainty"])
             d = min(white.values(), key=lambda d: abs(d["value"] - best["ri"]), default=None)
+            method = d is not None and abs(d["value"] - best["ri"]) < 0.003 and \
+                d.get("white_light_method") == "channel_cauchy"
+            (err_method if method else err_other).append(e)
+            if method:
+                (err_over if d.get("overexposed") else err_exposed).append(e)
             if d is not None and abs(d["value"] - best["ri"]) < 0.003:
                 if d.get("yellow_green_boundary") is not None:
                     err_yg.append(d["yellow_green_boundary"] - te["ri"])
@@ -113,6 +118,10 @@ def main(argv=None):
           f"held out unless stated; frames <= {args.max_mp} MP)")
     print(f"light detected: {lights}; rejected: {rejected}; true stone edges missed: {missed}")
     line("589.3 nm reading (channel edges + Cauchy), abs error", err, 0.002)
+    line("  of which read by the channel method            ", err_method)
+    line("    no channel clipped at the edge               ", err_exposed)
+    line("    over-exposed (a channel clipped at the edge) ", err_over)
+    line("  of which white light not recognised (luminance)", err_other)
     line("yellow-green boundary convention, abs error     ", err_yg)
     line("luminance onset (no white-light method), abs error", err_lum)
     if z:

@@ -407,7 +407,8 @@ def reading_summary(analysis) -> dict:
             continue
         out.append({"value": e.value, "uncertainty": e.uncertainty} | {k: e.figures.get(k) for k in (
             "white_light_method", "luminance_onset", "yellow_green_boundary", "channel_onsets",
-            "channel_wavelengths_nm", "stone_dispersion_fc", "stone_dispersion_fc_uncertainty")})
+            "channel_wavelengths_nm", "stone_dispersion_fc", "stone_dispersion_fc_uncertainty",
+            "overexposed")})
     return {"white_light_edges": out,
             "dispersion_approximate": any(d.get("stone_dispersion_fc") is not None for d in out)}
 
