@@ -247,6 +247,34 @@ def test_true_pair_below_the_liquid_line_stays_two_stone_edges():
     assert a.edges[-1].kind == "liquid"
 
 
+@pytest.mark.parametrize("lower_weight", [0.25, 0.35])
+def test_unequal_pair_just_below_the_liquid_stays_two_stone_edges(lower_weight):
+    # a pair whose lower edge rises from the dark field is a stone's, even when its upper
+    # edge lies where the liquid may be (the over-the-limit reading needs a dark field
+    # up to a strong step)
+    values = scale(1.30, 1.82, 2400)
+    y = make_profile(values, [1.772, 1.785], weights=[lower_weight, 1 - lower_weight],
+                     sigma=0.0012, noise=0.002, seed=1)
+    a = analyse_profile(values, y, 0.002, liquid_ri=1.79)
+    assert a.status == "ok"
+    assert [round(e.value, 3) for e in stones(a)] == [1.772, 1.785]
+
+
+@pytest.mark.parametrize(("separation", "sigma"), [(0.008, 0.004), (0.012, 0.005)])
+def test_pair_hidden_by_blur_is_covered_by_the_uncertainty(separation, sigma):
+    # Two edges closer than about 2.5 blur widths cannot be told from one blurred edge
+    # (Rayleigh-like limit, common practice); whichever reading comes out, each true
+    # edge must lie within twice the stated uncertainty of a reported stone edge.
+    values = scale()
+    truth = (1.55, 1.55 + separation)
+    y = make_profile(values, list(truth), sigma=sigma, noise=0.002, seed=2)
+    a = analyse_profile(values, y, 0.002, liquid_ri=1.79)
+    assert a.status == "ok"
+    for t in truth:
+        assert any(abs(e.value - t) <= 2 * e.uncertainty for e in stones(a))
+    assert "blurred" in a.flags
+
+
 @pytest.mark.parametrize("liquid_ri", [1.79, None])
 def test_over_the_limit_dark_up_to_the_liquid_edge(liquid_ri):
     values = scale()

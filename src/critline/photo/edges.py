@@ -85,6 +85,11 @@ MIN_CONTRAST_LIQUID = 0.02
 #: How far below the liquid's zone a faint step is still taken as part of the liquid
 #: line (scale units; the line's lower shoulder and a mis-scaled instrument's offset).
 LIQUID_LINE_REACH = 0.010
+#: A step in the liquid's zone taking more of the light than this (relative contrast)
+#: is no upper edge of a stone's pair (each ray about half the bright level).
+OVER_LIMIT_CONTRAST = 0.6
+#: Largest relative contrast of a step taken as the blurred foot of the liquid's edge.
+FOOT_CONTRAST = 0.4
 #: Detection threshold of the step filter, in standard deviations of the noise.
 Z_DETECT = 6.0
 #: Uncertainty floor for model mismatch (blur shape, sharpening, tone curve),
@@ -347,6 +352,9 @@ class _Trial:
     #: clipping hides the top of an edge (their difference measures how much the
     #: reading leans on the assumed shape)
     alt_onsets: np.ndarray | None = None
+    #: how far a lone term's onset may be from either edge of a pair that its blur
+    #: could hide (scale units; 0 when a pair is ruled out)
+    pair_spread: float = 0.0
 
 
 def _bic(fit: em.Fit):
@@ -517,7 +525,7 @@ def _fit_group(p: _Profile, group, lo_limit, hi_limit, liquid_ri, prism_index):
     if len(stone_cands) >= 2 and stone_cands[-1] - stone_cands[0] > 3 * s1:
         # two steps found apart in the same window (a birefringent stone's pair)
         proposals.append(([stone_cands[0] + 0.5 * s1, stone_cands[-1] + 0.5 * s1], False))
-    if _structured(one, n1 - 8 * s1 - 0.002, window.values[-1]):
+    if s1 > BLURRED_SIGMA or _structured(one, n1 - 8 * s1 - 0.002, window.values[-1]):
         # a pair fitted as one edge: one onset between the two and a blur that
         # spans both; split it symmetrically, or start from two slope peaks
         proposals.append(([n1 - s1, n1 + s1], False))
@@ -571,6 +579,12 @@ def _fit_group(p: _Profile, group, lo_limit, hi_limit, liquid_ri, prism_index):
         return None, flags  # smooth shading explains the window as well
     if overlap and best.fit.count == 1:
         flags.append("edges_overlap")
+    if best.fit.count == 1 and s1 > BLURRED_SIGMA:
+        # A lone blurred term may be two edges closer than the blur: two steps d apart
+        # blurred by s look like one of width about sqrt(s**2 + d**2 / 4), so its onset
+        # may miss either edge by up to d / 2 <= the fitted width.  The uncertainty
+        # covers both readings rather than trusting the single-edge one.
+        best.pair_spread = s1
     if best.window.clipped.any():
         fit = best.fit
         lower = np.concatenate([[best.window.values[0]], np.full(fit.count - 1, 1e-5),
@@ -675,6 +689,7 @@ def _terms(trial: _Trial, p: _Profile) -> list[_Term]:
         floor = math.hypot(floor, FLOOR_CLIPPED_FRACTION * hidden)
         if trial.alt_onsets is not None:
             floor = math.hypot(floor, float(trial.alt_onsets[k]) - n)
+        floor = math.hypot(floor, trial.pair_spread)
         above, below = _levels_at_onset(fit, window, k)
         contrast = float(np.clip((above - below) / above, 0.0, 1.0)) if above > 0 else 0.0
         figures = {
@@ -720,9 +735,18 @@ def _classify(terms: list[_Term], liquid_ri):
     if terms:
         top = terms[-1]
         near = _in_liquid_zone(top.value, liquid_ri, 3 * top.uncertainty)
-        if near and (len(terms) == 1 or top.contrast < FAINT_LIQUID):
+        # a strong step where the liquid is, with only steps close below it: the
+        # upper edge of a stone's pair seen without polariser takes at most about
+        # half of the light (each ray about half the bright level), so a step of more
+        # than OVER_LIMIT_CONTRAST is the liquid's edge over a dark field (over the
+        # limit) and the steps just below are its blurred foot (a stone's lower edge
+        # rises from the dark field, so its relative contrast is large)
+        foot = all(top.value - t.value <= LIQUID_LINE_REACH + 3 * top.width
+                   and t.contrast < FOOT_CONTRAST for t in terms[:-1])
+        if near and (len(terms) == 1 or top.contrast < FAINT_LIQUID
+                     or (top.contrast >= OVER_LIMIT_CONTRAST and foot)):
             liquid = top
-            terms = terms[:-1]
+            terms = terms[:-1] if top.contrast < FAINT_LIQUID else []
     if liquid is None and line_parts:
         liquid = max(line_parts, key=lambda t: t.contrast)
     if liquid is not None and liquid_ri is None:
