@@ -62,16 +62,7 @@ def test_every_photo_read(run):
     assert len(doc["stones"]) == len(CASES) + 1
 
 
-# Known defect of the photo reader at the time of writing (the check stays as it is): in
-# quartz/r000_pol90 a faint line at 1.788 beside the contact liquid's line is taken for a
-# second stone edge, which makes the stone read as biaxial.
-READER_LIQUID_LINE = pytest.mark.xfail(
-    reason="photo reader takes a faint line beside the liquid line for a stone edge (quartz r000_pol90)",
-    strict=False)
-
-
-@pytest.mark.parametrize("name", [pytest.param("quartz", marks=READER_LIQUID_LINE),
-                                  "corundum", "diopside", "sinhalite"])
+@pytest.mark.parametrize("name", ["quartz", "corundum", "diopside", "sinhalite"])
 def test_doubly_refractive_stones(run, name):
     case = CASES[name]
     s = stone(run[1], name)
