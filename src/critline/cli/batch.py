@@ -102,7 +102,7 @@ def print_summary(result, console) -> None:
         table.add_row(s.name, f"{len(s.usable)}/{len(s.photos)}", ri,
                       "-" if bi is None else f"{bi:.4f}",
                       getattr(a, "optic_character", None) or "undetermined",
-                      getattr(a, "optic_sign", None) or "-",
+                      getattr(a, "optic_sign", None) or "?",
                       "-" if lead is None else f"{candidate_name(lead)} ({float(lead.score):.2f})")
     console.print(table)
 
