@@ -143,6 +143,16 @@ class PolynomialMap:
     dof: int = 0
 
     @property
+    def centre_offset(self) -> float:
+        """Correction at the centre of the references (RI): calibrated minus nominal."""
+        return self.coefficients[0]
+
+    @property
+    def centre_gain_error(self) -> float:
+        """Relative gain correction at the centre (d correction / d nominal)."""
+        return float(self.slope(self.centre)) - 1.0
+
+    @property
     def birge_ratio(self) -> float:
         """sqrt(chi2/dof), at least 1 (the covariance is only ever inflated)."""
         return max(1.0, math.sqrt(self.chi2 / self.dof)) if self.dof > 0 else 1.0
@@ -416,13 +426,11 @@ class CalibrationFit:
 
     @property
     def offset(self) -> float:
-        """Correction at the centre of the references (RI): calibrated minus nominal."""
-        return self.scale_map.coefficients[0]
+        return self.scale_map.centre_offset
 
     @property
     def gain_error(self) -> float:
-        """Relative gain correction at the centre (d correction / d nominal)."""
-        return float(self.scale_map.slope(self.scale_map.centre)) - 1.0
+        return self.scale_map.centre_gain_error
 
 
 def _fit_field(pairs, step) -> tuple[PolynomialMap | None, str, np.ndarray | None]:

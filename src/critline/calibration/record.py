@@ -129,12 +129,11 @@ class Calibration:
 
     @property
     def offset(self) -> float:
-        """Correction (calibrated minus nominal) at the centre of the references."""
-        return self.scale_map.coefficients[0]
+        return self.scale_map.centre_offset
 
     @property
     def gain_error(self) -> float:
-        return float(self.scale_map.slope(self.scale_map.centre)) - 1.0
+        return self.scale_map.centre_gain_error
 
     def to_json(self) -> dict:
         """The ``critline.calibration/1`` document (design.md), with a few additions."""
