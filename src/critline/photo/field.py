@@ -261,3 +261,140 @@ def _check(g, xx, yy, lo, support, frac, cx, cy, r, level, reduce):
     if outside_frac > 0.15:
         return "bright areas outside the candidate field stop (not an eyepiece view?)", None
     return None, circle
+
+
+#: widest field-stop edge accepted by :func:`refine_stop` (RMS width of the brightness drop, in
+#: stop radii).  A soft stop (transition 0.06 radii wide) blurred by defocus measures about 0.016;
+#: a vignetting crescent's ramp (0.15 radii wide) 0.03 to 0.04 (sized on the synthesizer's
+#: envelope, tuning seeds).
+MAX_STOP_WIDTH = 0.026
+
+
+@dataclass(frozen=True)
+class StopOutline:
+    """The field stop refined at working resolution (working-image pixels).
+
+    Attributes
+    ----------
+    cx, cy, r : float
+        Centre and radius of the circle through the stop's edge (its half-brightness line).
+    rays : int
+        Number of radial profiles whose edge took part in the final fit.
+    rms : float
+        RMS distance of those edge points from the circle (pixels).
+    """
+
+    cx: float
+    cy: float
+    r: float
+    rays: int
+    rms: float
+
+
+def _circle_lsq(x, y, w):
+    """Weighted algebraic circle fit (Kasa 1976): minimises sum w (x^2 + y^2 + D x + E y + F)^2."""
+    a = np.stack([x, y, np.ones_like(x)], axis=1) * w[:, None]
+    b = -(x * x + y * y) * w
+    (d, e, f), *_ = np.linalg.lstsq(a, b, rcond=None)
+    cx, cy = -d / 2, -e / 2
+    return float(cx), float(cy), float(np.sqrt(max(cx * cx + cy * cy - f, 1e-9)))
+
+
+def refine_stop(rgb: np.ndarray, cx: float, cy: float, r: float, n_rays: int = 360) -> StopOutline | None:
+    """Sub-pixel outline of the field stop near a first circle, by radial profiles.
+
+    Method
+    ------
+    Along ``n_rays`` rays from the first centre the working image is sampled
+    (bilinear, ``cv2.remap``) from 0.8 to 1.2 radii and turned into linear
+    light (the sRGB curve undone), where the stop's transmission edge is
+    symmetric about the stop (a soft stop, defocus and motion blur spread it
+    evenly both ways).  On each ray the edge is the centroid of the outward
+    brightness drop (the negative radial derivative) within a window around
+    its steepest point: for a symmetric transition that is its centre, the
+    half-brightness point, unbiased by the stop's softness, the blur or the
+    shadow's brightness on that side (unlike a threshold, which moves the
+    boundary out on a dim side and in on a bright one).  Rays leaving the
+    frame are dropped; the circle is fitted to the edge points by weighted
+    least squares (Kasa 1976; weight = the drop's size, so the dark half of
+    the field counts by its contrast), rejecting points beyond 3 robust
+    standard deviations (MAD) and refitting, so a vignetting crescent's
+    boundary or the shadow edge meeting the stop does not pull it.
+
+    Parameters
+    ----------
+    rgb : ndarray (H, W, 3) or (H, W)
+        Working image, stored values (float32 0..1, uint8 or uint16).
+    cx, cy, r : float
+        First circle (working pixels), e.g. from :func:`find_field`.
+
+    Returns
+    -------
+    StopOutline or None
+        None when too few rays show the stop (the first circle then stands).
+
+    References
+    ----------
+    Kasa, I. (1976) A circle fitting procedure and its error analysis. IEEE Trans. Instrum. Meas. 25, 8-10.
+    """
+    h, w = rgb.shape[:2]
+    scale = {np.dtype(np.uint8): 255.0, np.dtype(np.uint16): 65535.0}.get(rgb.dtype, 1.0)
+    step = 0.25
+    rad = r * np.arange(0.8, 1.2, step / max(r, 1.0), dtype=np.float64)
+    t = np.linspace(0, 2 * np.pi, n_rays, endpoint=False)
+    ct, st = np.cos(t), np.sin(t)
+    mx = (cx + rad[None, :] * ct[:, None]).astype(np.float32)
+    my = (cy + rad[None, :] * st[:, None]).astype(np.float32)
+    inside = (mx >= 0) & (mx <= w - 1) & (my >= 0) & (my <= h - 1)
+    full = inside.all(axis=1)
+    if full.sum() < 30:
+        return None
+    samp = cv2.remap(rgb, mx, my, interpolation=cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
+    samp = samp.astype(np.float32) / np.float32(scale)
+    if samp.ndim == 3:
+        samp = 0.299 * samp[..., 0] + 0.587 * samp[..., 1] + 0.114 * samp[..., 2]
+    v = np.asarray(samp, np.float32)
+    lin = np.where(v <= 0.04045, v / 12.92, ((v + 0.055) / 1.055) ** 2.4).astype(np.float32)
+    # smooth along the ray (about one working pixel) and a little across rays (noise)
+    lin = cv2.GaussianBlur(lin, (0, 0), sigmaX=1.0 / step, sigmaY=0.7)
+    drop = -np.gradient(lin, axis=1)
+    # window around the steepest drop: wide enough for a soft, blurred stop
+    half_win = int(max(0.07 * r, 4.0) / step)
+    k = np.argmax(np.where(full[:, None], drop, -np.inf), axis=1)
+    idx = k[:, None] + np.arange(-half_win, half_win + 1)[None, :]
+    valid = full & (k - half_win >= 0) & (k + half_win < len(rad))
+    idx = np.clip(idx, 0, len(rad) - 1)
+    d = np.take_along_axis(drop, idx, axis=1)
+    lv = np.take_along_axis(lin, idx, axis=1)
+    size = lv[:, 0] - lv[:, -1]  # brightness drop across the window
+    dpos = np.clip(d, 0, None)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        cen = (dpos * np.take(rad, idx)).sum(axis=1) / dpos.sum(axis=1)
+    # a real stop edge: a clear drop, to a dark outside (the surround), and sharp: the edge of a
+    # vignetting crescent (the phone's pupil clipping the eyepiece's exit pupil) is a broad
+    # ramp, several times wider than a soft, defocused stop, and is left out
+    outside = lin[np.arange(len(k)), np.clip(k + half_win, 0, len(rad) - 1)]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        width = np.sqrt((dpos * (np.take(rad, idx) - cen[:, None]) ** 2).sum(axis=1) / dpos.sum(axis=1))
+    ok = (valid & np.isfinite(cen) & (size > 0.02) & (outside < 0.5 * lv[:, 0])
+          & (width < MAX_STOP_WIDTH * r))
+    if ok.sum() < 30:
+        return None
+    x, y = cx + cen[ok] * ct[ok], cy + cen[ok] * st[ok]
+    wt = np.sqrt(size[ok])
+    keep = np.ones(len(x), bool)
+    fit = (cx, cy, r)
+    for _ in range(4):
+        if keep.sum() < 20:
+            return None
+        fit = _circle_lsq(x[keep], y[keep], wt[keep])
+        res = np.hypot(x - fit[0], y - fit[1]) - fit[2]
+        mad = float(np.median(np.abs(res[keep] - np.median(res[keep])))) * 1.4826
+        new = np.abs(res) < max(3 * mad, 0.5)
+        if (new == keep).all():
+            break
+        keep = new
+    res = np.hypot(x[keep] - fit[0], y[keep] - fit[1]) - fit[2]
+    if abs(fit[2] / r - 1) > 0.1 or np.hypot(fit[0] - cx, fit[1] - cy) > 0.1 * r:
+        return None
+    return StopOutline(fit[0], fit[1], fit[2], int(keep.sum()), float(np.sqrt(np.mean(res**2))))

@@ -66,6 +66,24 @@ class FieldFrame:
     half: int
     reduce: int
     radius: float
+    #: the field stop refined at working resolution (:func:`critline.photo.field.refine_stop`),
+    #: working pixels; None when not refined (then ``cx, cy, radius`` stand for it)
+    stop: tuple[float, float, float] | None = None
+
+    def field_position(self, row):
+        """Signed position of frame row(s) along the axis from the field-stop centre, in stop radii.
+
+        This is the ``field_position`` of :class:`critline.readings.Edge` and what the field-frame
+        calibration maps to RI: a line across the axis (a shadow edge) at frame row ``row`` lies
+        ``u`` stop radii from the stop's centre, positive in the direction of increasing rows.
+        It is measured from the refined stop (sub-pixel centre and radius), so it does not depend
+        on where the coarse search put the frame's own centre, nor on zoom, shift or rotation of
+        the photo.
+        """
+        cx, cy, r = self.stop if self.stop is not None else (self.cx, self.cy, self.radius)
+        c, s = np.cos(self.angle), np.sin(self.angle)
+        along = (self.cx - cx) * c + (self.cy - cy) * s  # frame centre ahead of the stop centre
+        return (np.asarray(row, float) - self.half + along) / r
 
     def to_photo(self, i, j):
         """Full-size photo (x, y) of frame coordinates (row i, column j)."""
@@ -88,7 +106,7 @@ class FieldFrame:
     def flipped(self) -> FieldFrame:
         """The same frame with the axis direction reversed (u -> -u, v -> -v)."""
         return FieldFrame(self.grey[::-1, ::-1], self.rgb[::-1, ::-1], self.inside[::-1, ::-1],
-                          self.angle + np.pi, self.cx, self.cy, self.half, self.reduce, self.radius)
+                          self.angle + np.pi, self.cx, self.cy, self.half, self.reduce, self.radius, self.stop)
 
 
 def axis_angle(grey: np.ndarray, cx: float, cy: float, r: float) -> AxisEstimate:
@@ -125,6 +143,8 @@ def axis_angle(grey: np.ndarray, cx: float, cy: float, r: float) -> AxisEstimate
     yy, xx = np.ogrid[y0:y1, x0:x1]
     inner = ((xx - cx) ** 2 + (yy - cy) ** 2) < (0.85 * r) ** 2
     energy = gx * gx + gy * gy
+    if not inner.any() or not np.any(energy[inner] > 0):
+        return AxisEstimate(0.0, 0.0)  # no field interior in the photo (or a flat one): no direction
     # the strongest fifth of the gradients carries nearly all the weight: use only those
     sel = inner & (energy >= np.percentile(energy[inner], 80))
     gxs, gys = gx[sel], gy[sel]
@@ -145,8 +165,13 @@ def axis_angle(grey: np.ndarray, cx: float, cy: float, r: float) -> AxisEstimate
     return AxisEstimate(float(angle), coherence)
 
 
-def make_frame(rgb: np.ndarray, cx: float, cy: float, r: float, angle: float, reduce: int) -> FieldFrame:
+def make_frame(rgb: np.ndarray, cx: float, cy: float, r: float, angle: float, reduce: int,
+               refine: bool = True) -> FieldFrame:
     """Resample the field so the scale axis runs down the rows.
+
+    The frame keeps the given circle for its own geometry (centre row, ``inside``); the field
+    stop refined at this resolution (:func:`critline.photo.field.refine_stop`) is kept beside
+    it for :meth:`FieldFrame.field_position`.
 
     Parameters
     ----------
@@ -158,7 +183,13 @@ def make_frame(rgb: np.ndarray, cx: float, cy: float, r: float, angle: float, re
         Axis direction (radians).
     reduce : int
         Reduction factor of the working image relative to the photo.
+    refine : bool
+        Refine the field stop's outline (sub-pixel) for field positions.
     """
+    from critline.photo.field import refine_stop
+
+    outline = refine_stop(rgb, cx, cy, r) if refine else None
+    stop = None if outline is None else (outline.cx, outline.cy, outline.r)
     half = int(np.ceil(r)) + 2
     n = 2 * half + 1
     c, s = np.cos(angle), np.sin(angle)
@@ -175,4 +206,4 @@ def make_frame(rgb: np.ndarray, cx: float, cy: float, r: float, angle: float, re
     grey = (0.299 * warped[..., 0] + 0.587 * warped[..., 1] + 0.114 * warped[..., 2]).astype(np.float32)
     ii, jj = np.ogrid[0:n, 0:n]
     inside = valid & (((ii - half) ** 2 + (jj - half) ** 2) < (0.97 * r) ** 2)
-    return FieldFrame(grey, warped, inside, float(angle), float(cx), float(cy), half, reduce, float(r))
+    return FieldFrame(grey, warped, inside, float(angle), float(cx), float(cy), half, reduce, float(r), stop)

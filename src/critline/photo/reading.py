@@ -313,7 +313,7 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
         scale_pos = (e.value - inst.first) / step_val
         scale_unc = math.sqrt((e.uncertainty / step_val) ** 2 + k_unc ** 2 + k_straight ** 2
                               + GEOMETRY_FLOOR ** 2)
-        u = (row - frame.half) / frame.radius
+        u = float(frame.field_position(row))
         eflags: tuple[str, ...] = ()
         if calibration is not None:
             ri, unc, eflags = calibration.scale_to_ri(scale_pos, scale_unc)
@@ -361,9 +361,23 @@ def _thin(profile, max_points=400):
     return tuple(xs[i] for i in sel), tuple(ys[i] for i in sel)
 
 
+#: Standard uncertainty (field radii) of a field position measured on the refined field stop:
+#: chiefly the phone's perspective tilt, which moves the projected stop's centre off the image
+#: of the eyepiece's centre by up to tan(tilt) x tan(field half-angle) along the tilt, a shift
+#: the stop's outline cannot sign; plus the outline fit.  Sized on tuning seeds (20000-20999:
+#: |error| median 0.012, 95th percentile 0.036 field radii).
+FIELD_POSITION_SIGMA = 0.018
+#: The same when the stop could not be refined (coarse circle only: a few coarse pixels).
+FIELD_POSITION_SIGMA_COARSE = 0.04
+
+
 def _no_graduations(photo, name, reason, figures, flags, calibration, frame, circle, inst):
     """Graduations failed: a field-frame reading when the calibration has a field-frame map
-    (edge position relative to the field circle -> RI), else rejected with the reason."""
+    (edge position relative to the field circle -> RI), else rejected with the reason.
+
+    The reading says so: ``mode`` is ``field_frame`` and its flags carry ``field_frame`` and
+    ``lower_precision``; each edge's uncertainty includes :data:`FIELD_POSITION_SIGMA`.
+    """
     if calibration is None or getattr(calibration, "field_map", None) is None:
         return rejected(name, photo.sha256, reason)
     # no graduation column known: the profile over the central columns (the median ignores the
@@ -373,7 +387,7 @@ def _no_graduations(photo, name, reason, figures, flags, calibration, frame, cir
     if down is None or step < 0.03:
         return rejected(name, photo.sha256, reason + "; no shadow edge for a field-frame reading either")
     sign = 1.0 if down else -1.0
-    fpos = sign * (prof.rows - frame.half) / frame.radius  # positive toward higher values
+    fpos = sign * frame.field_position(prof.rows)  # positive toward higher values
     order = np.argsort(fpos)
     fpos, bright, noise, rgb_p = fpos[order], prof.brightness[order], prof.noise[order], prof.rgb[:, order]
     inside = np.abs(fpos) < 0.95
@@ -395,13 +409,16 @@ def _no_graduations(photo, name, reason, figures, flags, calibration, frame, cir
     edges = []
     for e in analysis.edges:
         f = float(np.interp(e.value, ri_axis, fpos))
-        f_unc = float(e.uncertainty / max(np.interp(f, fpos, slope), 1e-9))
+        f_fit = float(e.uncertainty / max(np.interp(f, fpos, slope), 1e-9))
+        f_unc = math.hypot(f_fit, FIELD_POSITION_SIGMA if frame.stop is not None else FIELD_POSITION_SIGMA_COARSE)
         ri, unc, eflags = calibration.field_to_ri(f, f_unc)
         edges.append(Edge(ri=float(ri), uncertainty=float(max(unc, 1e-4)), kind=e.kind,
                           scale_position=float("nan"), scale_uncertainty=float("nan"),
                           contrast=float(np.clip(e.contrast, 0, 1)), field_position=f, flags=tuple(eflags)))
     edges.sort(key=lambda e: e.ri)
-    flags = list(flags) + ["field_frame"]
+    flags = list(flags) + ["field_frame", "lower_precision"]
+    if frame.stop is None:
+        flags.append("field_stop_coarse")
     figures = dict(figures, graduations_failure=reason)
     return PhotoReading(photo=name, sha256=photo.sha256, status=analysis.status, reason=None,
                         edges=tuple(edges), light=getattr(analysis, "light", "unknown"), mode="field_frame",
