@@ -141,6 +141,21 @@ def reading_from_record(rec: dict) -> PhotoReading:
     )
 
 
+def load_reading_file(path: str | Path, sha256: str, photo: str) -> PhotoReading | None:
+    """The reading stored in one cache file, renamed to ``photo``; None when the file is missing,
+    damaged or holds another photo's result (``sha256`` differs)."""
+    try:
+        rec = json.loads(Path(path).read_text(encoding="utf-8"))
+        if rec.get("schema") != CACHE_SCHEMA:
+            return None
+        reading = reading_from_record(rec["reading"])
+    except (OSError, ValueError, KeyError, TypeError, IndexError, AttributeError):
+        return None
+    if reading.sha256 != sha256:
+        return None
+    return reading if reading.photo == photo else replace(reading, photo=photo)
+
+
 class ReadingCache:
     """Photo results stored under ``directory`` as ``<key>.json``.
 

@@ -78,9 +78,10 @@ def photo_problems(stones: tuple[StoneResult, ...]) -> list[Problem]:
     out = []
     for stone in stones:
         for p in stone.photos:
-            if p.reading.status == "rejected":
-                kind = "unreadable" if (p.reading.reason or "").startswith("cannot open") else "rejected"
-                out.append(Problem(p.item.display, p.reading.reason or "rejected", kind))
+            r = p.summary
+            if r.status == "rejected":
+                kind = "unreadable" if (r.reason or "").startswith("cannot open") else "rejected"
+                out.append(Problem(p.item.display, r.reason or "rejected", kind))
     return out
 
 
@@ -139,7 +140,9 @@ def run_batch(source: str | Path, *, calibration=None, instrument: Instrument | 
                 continue
             hit = None if fresh else cache.get(sha, item.display)
             if hit is not None:
-                results[item.display] = PhotoResult(item, hit[0], hit[1], cached=True)
+                # only a summary stays in memory; the report re-reads the rest from the cache file
+                results[item.display] = PhotoResult(item, hit[0], hit[1], cached=True,
+                                                    source=cache.path(sha))
                 n_cached += 1
                 continue
             tasks.append(ReadTask(os.fspath(item.path), item.display, sha,
@@ -150,15 +153,16 @@ def run_batch(source: str | Path, *, calibration=None, instrument: Instrument | 
     done_count = [0]
 
     def on_result(task, reading, overlay):
-        results[task.display] = PhotoResult(items[task.display], reading, overlay)
-        if is_verdict(reading):
-            cache.put(reading, overlay)
+        # memory must not grow with the number of photos: a reading stored in the cache is kept
+        # as a summary (the profile and quality figures are re-read from its file for the report)
+        source = cache.put(reading, overlay) if is_verdict(reading) else None
+        results[task.display] = PhotoResult(items[task.display], reading, overlay, source=source)
         done_count[0] += 1
         if on_progress is not None:
             on_progress(done_count[0], len(tasks))
 
     read_many(tasks, reader=reader, instrument=instrument, calibration=calibration,
-              workers=workers, on_result=on_result)
+              workers=workers, on_result=on_result, keep=False)
 
     liquid = getattr(instrument, "liquid_ri", None)
     stones = tuple(

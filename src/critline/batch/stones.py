@@ -10,28 +10,84 @@ rejected, rotation missing).
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+import os
+from dataclasses import dataclass, field, replace
 
 from critline.batch.grouping import PhotoItem, StoneGroup
 from critline.errors import CritlineError
-from critline.readings import PhotoReading
+from critline.readings import PhotoReading, Quality
 
 #: statuses that carry information about the stone (``no_edge`` too: nothing on the scale)
 USABLE = ("ok", "over_limit", "no_edge")
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, init=False)
 class PhotoResult:
-    """One photo of a stone and what was read from it."""
+    """One photo of a stone and what was read from it.
+
+    A batch keeps thousands of these until its reports are written, so a result
+    whose reading is stored in the batch's cache keeps in memory only a
+    ``summary`` of it (the reading without its brightness profile and quality
+    figures, about a tenth of its size) and the cache file it came from;
+    :attr:`reading` loads the full reading from that file when it is asked for
+    (the report writers ask once per photo).  Without ``source`` the reading
+    is kept whole, as given.
+
+    Parameters
+    ----------
+    item : PhotoItem
+    reading : PhotoReading
+        The full reading.
+    overlay : str, optional
+        The marked-up photo.
+    cached : bool
+        Taken from an earlier run's cache.
+    source : path, optional
+        Cache file holding ``reading`` (:meth:`critline.batch.cache.ReadingCache.path`).
+    """
 
     item: PhotoItem
-    reading: PhotoReading
+    summary: PhotoReading
     overlay: str | None = None
     cached: bool = False
+    source: str | None = field(default=None, repr=False)
+
+    def __init__(self, item: PhotoItem, reading: PhotoReading, overlay: str | None = None,
+                 cached: bool = False, source: str | os.PathLike | None = None):
+        if source is not None:
+            reading = summary_of(reading)
+        object.__setattr__(self, "item", item)
+        object.__setattr__(self, "summary", reading)
+        object.__setattr__(self, "overlay", overlay)
+        object.__setattr__(self, "cached", cached)
+        object.__setattr__(self, "source", None if source is None else os.fspath(source))
+
+    @property
+    def reading(self) -> PhotoReading:
+        """The full reading (from the cache file when only the summary is in memory).
+
+        Should the file have gone or changed since it was written (it is the batch's own,
+        under the output folder's lock), the summary is returned: edges, status and flags
+        complete, profile and quality figures missing.
+        """
+        if self.source is None:
+            return self.summary
+        from critline.batch.cache import load_reading_file
+
+        full = load_reading_file(self.source, self.summary.sha256, self.summary.photo)
+        return self.summary if full is None else full
 
     @property
     def usable(self) -> bool:
-        return self.reading.status in USABLE
+        return self.summary.status in USABLE
+
+
+def summary_of(reading: PhotoReading) -> PhotoReading:
+    """The reading without what only a report's detail needs (profile, quality figures); its
+    edges, status, reason, light, mode, quality flags and field circle are kept."""
+    if reading.profile is None and not reading.quality.figures:
+        return reading
+    return replace(reading, profile=None, quality=Quality(flags=reading.quality.flags))
 
 
 @dataclass(frozen=True)
@@ -120,8 +176,8 @@ def analyse_stone(group: StoneGroup, photos: tuple[PhotoResult, ...], *,
     if not usable:
         notes.append("no usable reading: nothing to analyse")
         return StoneResult(group.name, photos, None, None, tuple(notes), group.sg)
-    facet = [p for p in usable if not is_spot_view(p.reading)]
-    spot = [p for p in usable if is_spot_view(p.reading)]
+    facet = [p for p in usable if not is_spot_view(p.summary)]
+    spot = [p for p in usable if is_spot_view(p.summary)]
     if facet and all(p.item.rotation is None for p in facet):
         notes.append("rotation not known for any photo: readings are shown in photo order and "
                      "the analysis relies on the edges alone")
@@ -140,8 +196,8 @@ def analyse_stone(group: StoneGroup, photos: tuple[PhotoResult, ...], *,
                   if len(spot) >= 2 else None)
         # a spot view without a split (wholly light spot) bounds nothing on its own
         chosen = facet + ([] if series is not None else
-                          [p for p in spot if any(e.kind == "spot" for e in p.reading.edges)])
-        observations = [observation(p.item, p.reading) for p in chosen]
+                          [p for p in spot if any(e.kind == "spot" for e in p.summary.edges)])
+        observations = [observation(p.item, p.summary) for p in chosen]
         if series is not None:
             observations.append(series)
         analysis = analyse_session(observations, liquid_ri=liquid_ri)

@@ -202,11 +202,13 @@ _THREAD_VARIABLES = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS
 def read_many(tasks: Sequence[ReadTask], *, reader: Reader, instrument=None, calibration=None,
               workers: int | None = None,
               on_result: Callable[[ReadTask, PhotoReading, str | None], None] | None = None,
-              ) -> list[tuple[PhotoReading, str | None]]:
+              keep: bool = True) -> list[tuple[PhotoReading, str | None]]:
     """Read ``tasks`` with ``workers`` processes; results in task order.
 
     ``on_result`` is called in this process for every finished photo (progress,
-    cache writes) as soon as its chunk is back.
+    cache writes) as soon as its chunk is back.  With ``keep=False`` the results
+    are handed to ``on_result`` only and the returned list holds None (a large
+    batch then does not hold every full reading until the end).
     """
     tasks = list(tasks)
     workers = default_workers() if workers is None else int(workers)
@@ -215,7 +217,8 @@ def read_many(tasks: Sequence[ReadTask], *, reader: Reader, instrument=None, cal
     results: list[tuple[PhotoReading, str | None] | None] = [None] * len(tasks)
 
     def done(i, res):
-        results[i] = res
+        if keep:
+            results[i] = res
         if on_result is not None:
             on_result(tasks[i], *res)
 

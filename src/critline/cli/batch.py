@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import json
 import sys
 from pathlib import Path
 
@@ -141,7 +140,8 @@ def batch(
     one photo was rejected or unreadable (listed one per line on stderr and in the report); 2: usage.
     """
     from critline.batch import run_batch
-    from critline.report import batch_document, write_reports
+    from critline.report import write_reports
+    from critline.report.document import iter_batch_json
 
     inst, cal = load_setup(calibration, instrument)
     out_dir = out if out is not None else default_out(folder)
@@ -186,8 +186,8 @@ def batch(
     finally:
         if progress is not None:
             progress.stop()
-    document = batch_document(result)
-    paths = write_reports(result, out_dir, overwrite=overwrite, document=document)
+    # written one stone at a time: the reports' memory does not grow with the number of photos
+    paths = write_reports(result, out_dir, overwrite=overwrite)
     report_problems(result.problems)
     if paths["json"].stem != "report":
         print(f"critline: earlier report kept in {out_dir}; this one is {paths['html'].name} "
@@ -197,7 +197,9 @@ def batch(
           f"{c['rejected']} without a result; reports: {', '.join(str(p) for p in paths.values())}",
           file=sys.stderr)
     if as_json:
-        sys.stdout.write(json.dumps(document, ensure_ascii=False) + "\n")
+        for piece in iter_batch_json(result, indent=None):  # json.dumps(document), in pieces
+            sys.stdout.write(piece)
+        sys.stdout.write("\n")
     else:
         from rich.console import Console
 

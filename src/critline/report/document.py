@@ -10,7 +10,9 @@ would separate the leading candidates, and every problem file.
 
 from __future__ import annotations
 
+import json
 import math
+from collections.abc import Iterator
 
 from critline import __version__, cautions
 
@@ -102,8 +104,7 @@ def stone_json(stone) -> dict:
     return d
 
 
-def batch_document(result) -> dict:
-    """The ``critline.batch/1`` dict of a :class:`critline.batch.BatchResult`."""
+def _document(result, stones) -> dict:
     return {
         "schema": SCHEMA,
         "source": result.source,
@@ -112,7 +113,48 @@ def batch_document(result) -> dict:
         "instrument": result.instrument.to_dict(),
         "critline": __version__,
         "counts": dict(result.counts),
-        "stones": [stone_json(s) for s in result.stones],
+        "stones": stones,
         "problems": [p.to_json() for p in result.problems],
         "cautions": list(cautions.ALL),
     }
+
+
+def batch_document(result) -> dict:
+    """The ``critline.batch/1`` dict of a :class:`critline.batch.BatchResult`."""
+    return _document(result, [stone_json(s) for s in result.stones])
+
+
+#: stands for the stones in the encoded frame of the document (no file name or text holds it:
+#: JSON writes the control characters as \u0000 escapes)
+_STONES_MARK = "\x00critline stones\x00"
+
+
+def iter_batch_json(result, *, indent: int | None = 1) -> Iterator[str]:
+    """The text of ``json.dumps(batch_document(result), indent=indent, ensure_ascii=False)``,
+    in pieces, one stone at a time.
+
+    A batch of thousands of photos need not hold its whole document (every reading's
+    quality figures) in memory to write it: only one stone's part exists at a time.
+    The pieces join to exactly the bytes ``json.dumps`` gives (checked by the tests):
+    the frame is encoded with a marker in place of the stone list, and each stone is
+    encoded on its own and indented to its depth (JSON text holds no raw line breaks
+    inside strings, so indenting after every line break is exact).
+    """
+    frame = json.dumps(_document(result, _STONES_MARK), indent=indent, ensure_ascii=False)
+    marker = json.dumps(_STONES_MARK, ensure_ascii=False)
+    head, tail = frame.split(marker)
+    yield head
+    if not result.stones:
+        yield "[]"
+    else:
+        # the stone list sits at depth 1 of the document: items at depth 2
+        inner = None if indent is None else "\n" + " " * (2 * indent)
+        yield "["
+        for i, stone in enumerate(result.stones):
+            text = json.dumps(stone_json(stone), indent=indent, ensure_ascii=False)
+            if inner is None:
+                yield (", " if i else "") + text
+            else:
+                yield ("," if i else "") + inner + text.replace("\n", inner)
+        yield "]" if indent is None else "\n" + " " * indent + "]"
+    yield tail

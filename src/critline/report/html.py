@@ -15,6 +15,7 @@ import base64
 import datetime as _dt
 import io
 import math
+from collections.abc import Iterator
 from html import escape
 from pathlib import Path
 
@@ -150,7 +151,7 @@ def _edge_series(stone):
         x = p.item.rotation if rotation_known else k
         if x is None:
             continue
-        for e in p.reading.stone_edges:
+        for e in p.summary.stone_edges:
             by_x.setdefault(float(x), []).append((p, e))
     points = []
     for x, group in by_x.items():
@@ -175,8 +176,8 @@ def _edge_series(stone):
         levels.append((lo, f"low {lo:.4f}", svg.LOW))
     if hi is not None and lo is not None and hi - lo > 1e-4:
         levels.append((hi, f"high {hi:.4f}", svg.HIGH))
-    liquids = [e.ri for p in usable for e in p.reading.edges if e.kind == "liquid"]
-    if liquids and any(p.reading.status == "over_limit" for p in usable):
+    liquids = [e.ri for p in usable for e in p.summary.edges if e.kind == "liquid"]
+    if liquids and any(p.summary.status == "over_limit" for p in usable):
         liquids.sort()
         levels.append((liquids[len(liquids) // 2], "liquid (over the limit)", svg.LIQUID))
     return points, levels, rotation_known
@@ -248,17 +249,17 @@ def _candidates(stone) -> str:
 def _thumbs(stone) -> str:
     figs = []
     for p in stone.photos:
-        if p.reading.status == "rejected":
+        if p.summary.status == "rejected":
             continue
         uri = thumbnail_data_uri(p.overlay) if p.overlay else None
         note = ""
         if uri is None:
             uri = thumbnail_data_uri(p.item.path)
             note = " · photo as taken (no marked-up copy)"
-        edges = ", ".join([f"{e.ri:.4f}" for e in sorted(p.reading.stone_edges, key=lambda e: e.ri)]
-                          + [f"spot {e.ri:.2f}" for e in p.reading.edges if e.kind == "spot"])
+        edges = ", ".join([f"{e.ri:.4f}" for e in sorted(p.summary.stone_edges, key=lambda e: e.ri)]
+                          + [f"spot {e.ri:.2f}" for e in p.summary.edges if e.kind == "spot"])
         caption = (f"{_e(p.item.display)}<br>rotation {_e(_deg(p.item.rotation))} · polariser "
-                   f"{_e(p.item.polariser_setting)}<br>{_e(p.reading.status)}"
+                   f"{_e(p.item.polariser_setting)}<br>{_e(p.summary.status)}"
                    + (f": {_e(edges)}" if edges else "") + _e(note))
         img = (f'<img src="{uri}" alt="marked-up photo {_e(p.item.display)}">' if uri
                else '<div class="pm">(no image)</div>')
@@ -289,7 +290,7 @@ def _profiles(stone) -> str:
 def _readings_table(stone) -> str:
     rows = []
     for p in stone.photos:
-        r = p.reading
+        r = p.summary
         edges = ", ".join(f"{e.ri:.4f} ± {max(e.uncertainty, 1e-4):.4f}"
                           for e in sorted(r.stone_edges, key=lambda e: e.ri))
         edges = ", ".join([edges] * bool(edges) + [f"spot {e.ri:.2f} ± {e.uncertainty:.2f}"
@@ -335,9 +336,9 @@ def _stone(stone, index: int) -> str:
 
 
 def _no_plot(stone) -> str:
-    over = [p for p in stone.usable if p.reading.status == "over_limit"]
+    over = [p for p in stone.usable if p.summary.status == "over_limit"]
     if over:
-        liquid = sorted(e.ri for p in over for e in p.reading.edges if e.kind == "liquid")
+        liquid = sorted(e.ri for p in over for e in p.summary.edges if e.kind == "liquid")
         where = f" near {liquid[len(liquid) // 2]:.3f}" if liquid else ""
         return (f'<p class="pm">Over the limit in {len(over)} of {len(stone.usable)} photos: only the '
                 f'contact liquid\'s line{_e(where)} shows, the stone reads above it.</p>')
@@ -368,9 +369,20 @@ def _glance(result) -> str:
             + "".join(rows) + "</tbody></table>")
 
 
+def generated_now() -> str:
+    """The time a page is written, as the report shows it."""
+    return _dt.datetime.now().astimezone().strftime("%Y-%m-%d %H:%M %Z")
+
+
 def batch_html(result, *, generated: str | None = None) -> str:
     """The self-contained HTML report of a :class:`critline.batch.BatchResult`."""
-    generated = generated or _dt.datetime.now().astimezone().strftime("%Y-%m-%d %H:%M %Z")
+    return "".join(iter_batch_html(result, generated=generated))
+
+
+def iter_batch_html(result, *, generated: str | None = None) -> Iterator[str]:
+    """:func:`batch_html` in pieces, one stone card at a time (each card embeds its photos: a
+    large batch's page need not be held whole in memory to be written)."""
+    generated = generated or generated_now()
     cal = result.calibration_info or {}
     if result.calibration_id:
         cal_text = f"{result.calibration_id}"
@@ -394,22 +406,23 @@ def batch_html(result, *, generated: str | None = None) -> str:
         ("written", _e(f"{generated} by critline {__version__}")),
     ]
     problems = "".join(f"<li>{_e(p.line())}</li>" for p in result.problems)
-    body = (
-        '<main><h1>Refractometer readings</h1>'
-        '<p class="lede">Shadow edges read from photos of the eyepiece view, reduced per stone and '
-        'compared with the property table. Evidence for a gemmologist, not a verdict.</p>'
-        '<dl class="ledger">' + "".join(f"<dt>{k}</dt><dd>{v}</dd>" for k, v in ledger) + "</dl>"
-        "<h3>stones at a glance</h3>" + _glance(result)
-        + "".join(_stone(s, i) for i, s in enumerate(result.stones, start=1))
-        + '<section class="problems"><h3>problem files</h3>'
-        + (f"<ul>{problems}</ul>" if problems else '<p class="pm">None: every photo gave a result.</p>')
-        + "</section>"
-        + '<footer class="cautions"><h3>cautions</h3>'
-        + "".join(f'<p class="{"evidence" if c == cautions.EVIDENCE else ""}">{_e(c)}</p>'
-                  for c in cautions.ALL)
-        + "</footer></main>")
-    return ("<!DOCTYPE html><html lang=\"en\"><head><meta charset=\"utf-8\">"
-            f'<meta http-equiv="Content-Security-Policy" content="{CSP}">'
-            '<meta name="viewport" content="width=device-width, initial-scale=1">'
-            f"<title>critline report: {_e(Path(result.source).name or result.source)}</title>"
-            f"<style>{CSS}</style></head><body>{body}</body></html>")
+    yield ("<!DOCTYPE html><html lang=\"en\"><head><meta charset=\"utf-8\">"
+           f'<meta http-equiv="Content-Security-Policy" content="{CSP}">'
+           '<meta name="viewport" content="width=device-width, initial-scale=1">'
+           f"<title>critline report: {_e(Path(result.source).name or result.source)}</title>"
+           f"<style>{CSS}</style></head><body>")
+    yield ('<main><h1>Refractometer readings</h1>'
+           '<p class="lede">Shadow edges read from photos of the eyepiece view, reduced per stone and '
+           'compared with the property table. Evidence for a gemmologist, not a verdict.</p>'
+           '<dl class="ledger">' + "".join(f"<dt>{k}</dt><dd>{v}</dd>" for k, v in ledger) + "</dl>"
+           "<h3>stones at a glance</h3>" + _glance(result))
+    for i, s in enumerate(result.stones, start=1):
+        yield _stone(s, i)
+    yield ('<section class="problems"><h3>problem files</h3>'
+           + (f"<ul>{problems}</ul>" if problems else '<p class="pm">None: every photo gave a result.</p>')
+           + "</section>"
+           + '<footer class="cautions"><h3>cautions</h3>'
+           + "".join(f'<p class="{"evidence" if c == cautions.EVIDENCE else ""}">{_e(c)}</p>'
+                     for c in cautions.ALL)
+           + "</footer></main>")
+    yield "</body></html>"
