@@ -103,8 +103,21 @@ class Graduations:
         k0, k1 = float(self.indices.min()) - 200, float(self.indices.max()) + 200
         grid = np.linspace(k0, k1, 8001)
         rows = self.row_of(grid)
-        order = np.argsort(rows)
-        return np.interp(row, rows[order], grid[order], left=np.nan, right=np.nan)
+        # only the branch through the found graduations: far outside them a polynomial may turn
+        # back and cover the same rows again, and mixing branches would scramble the order
+        slope = np.diff(rows)
+        centre = int(np.clip(np.searchsorted(grid, 0.5 * (self.indices.min() + self.indices.max())),
+                             0, slope.size - 1))
+        sign = np.sign(slope[centre])
+        if sign == 0:
+            return np.full(row.shape, np.nan)
+        bad = np.flatnonzero(np.sign(slope) != sign)
+        lo = int(bad[bad < centre].max()) + 1 if np.any(bad < centre) else 0
+        hi = int(bad[bad > centre].min()) if np.any(bad > centre) else slope.size
+        grid, rows = grid[lo:hi + 1], rows[lo:hi + 1]
+        if sign < 0:
+            grid, rows = grid[::-1], rows[::-1]
+        return np.interp(row, rows, grid, left=np.nan, right=np.nan)
 
     def index_uncertainty(self, row):
         """Standard uncertainty of the index at frame row(s), from the fit covariance."""

@@ -26,7 +26,7 @@ from critline.photo.graduations import (
     find_graduations,
     normalised,
 )
-from critline.photo.load import LoadedPhoto, PhotoRejected, decode, load_photo
+from critline.photo.load import LoadedPhoto, PhotoRejected, decode, load_photo, to_float
 from critline.photo.profile import Profile, brightness_profile
 from critline.photo.whitelight import calibration_light_refusal
 from critline.photo.whitelight import reading_summary as white_light_summary
@@ -36,6 +36,9 @@ from critline.readings import Edge, PhotoReading, Quality, rejected
 WORK_DIAMETER = 560
 #: Short side (pixels) wanted for finding the field.
 COARSE_SHORT = 300
+#: Field diameter (pixels) below which the working image is decoded afresh at a smaller reduction
+#: instead of shrunk from the photo's one decode (see :func:`_base_reduction`).
+MIN_WORK_DIAMETER = 360
 
 #: Systematic geometry term (graduation units) added in quadrature: perspective and resampling
 #: effects the fitted figures do not see (sized on the tuning seeds, below 10000).
@@ -59,6 +62,49 @@ def _reduce_for(size: float, want: float) -> int:
     return 1
 
 
+def _base_reduction(width: int, height: int) -> int:
+    """Reduction of the one decode a photo gets, from its size alone.
+
+    Decoding a JPEG costs about the same at any reduction (entropy decoding is
+    most of it), so a photo is decoded once, as small as keeps the smallest
+    field the envelope allows (25 % of the short side) at
+    :data:`MIN_WORK_DIAMETER` pixels, and the coarse and working images are
+    shrunk from it.
+    """
+    return _reduce_for(0.25 * min(width, height), MIN_WORK_DIAMETER)
+
+
+def _base_image(photo: LoadedPhoto) -> tuple[np.ndarray, int]:
+    """The photo's one decode (stored RGB integers) and its reduction."""
+    rb = _base_reduction(photo.width, photo.height)
+    return decode(photo, rb, raw=True), rb
+
+
+def _coarse_grey(photo: LoadedPhoto, base: np.ndarray, rb: int) -> tuple[np.ndarray, int]:
+    """Grey image for finding the field (float 0..1, about :data:`COARSE_SHORT` on the short side)."""
+    rc = max(_reduce_for(min(photo.width, photo.height), COARSE_SHORT), rb)
+    return to_float(_shrink(cv2.cvtColor(base, cv2.COLOR_RGB2GRAY), rc // rb)), rc
+
+
+def _working_rgb(photo: LoadedPhoto, circle, base: np.ndarray, rb: int) -> tuple[np.ndarray, int]:
+    """Working image (stored integers) with the field at least :data:`WORK_DIAMETER` across where
+    the photo allows, and its reduction."""
+    rw = _reduce_for(2 * circle.r, WORK_DIAMETER)
+    if rw >= rb:
+        return _shrink(base, rw // rb), rw
+    if 2 * circle.r / rb >= MIN_WORK_DIAMETER:
+        return base, rb
+    return decode(photo, rw, raw=True), rw  # a small field: worth a second, larger decode
+
+
+def _shrink(arr: np.ndarray, factor: int) -> np.ndarray:
+    """``arr`` reduced by an integer factor by area averaging (the last partial block dropped)."""
+    if factor <= 1:
+        return arr
+    h, w = arr.shape[0] // factor * factor, arr.shape[1] // factor * factor
+    return cv2.resize(arr[:h, :w], (w // factor, h // factor), interpolation=cv2.INTER_AREA)
+
+
 def _analyse(values, brightness, noise, liquid_ri, rgb, prism_index=1.88):
     """Stage 5: the edges helper's 1-D analysis of the profile (critline.photo.edges)."""
     return analyse_profile(values, brightness, noise, liquid_ri=liquid_ri, prism_index=prism_index, rgb=rgb)
@@ -73,6 +119,58 @@ class _NoEdges:
     edges: tuple = ()
     status: str = "no_edge"
     figures: dict = field(default_factory=dict)
+
+
+#: Over the limit with the liquid's edge beyond the profile: the scale's brightest part
+#: (90th percentile of row means) at most this fraction of the field's level beyond the liquid's zone.
+DARK_SCALE_RATIO = 0.5
+
+
+def _bright_only_beyond(frame, grads, inst: Instrument) -> dict | None:
+    """Whole-field evidence of over the limit when the profile ends before the liquid's edge.
+
+    Over the limit the field is dark up to the contact liquid's edge; when that edge lies
+    where the profile beside the graduations no longer reaches (the scale's end near the
+    field stop), the profile shows a dark field and no step.  The mean linear brightness of
+    each frame row across the whole field, placed on the scale by the graduation map
+    (extrapolated a few graduations further than the profile is), tells the two apart: over
+    the limit the scale below the liquid's zone is dark next to the field beyond it.
+
+    Returns the figures (``scale_level``, ``beyond_level``) when the field is over the
+    limit by this test, else None.
+    """
+    from critline.photo.edges import LIQUID_DRIFT
+    from critline.photo.load import srgb_to_linear
+
+    lin = srgb_to_linear(frame.grey)
+    inside = frame.inside
+    counts = inside.sum(axis=1)
+    rows = np.flatnonzero(counts >= max(0.2 * frame.radius, 5))
+    if rows.size < 20:
+        return None
+    means = (lin * inside).sum(axis=1)[rows] / counts[rows]
+    values = inst.first + inst.step * grads.index_of(rows.astype(float))
+    ok = np.isfinite(values) & (values <= inst.last + 10 * inst.step)
+    values, means = values[ok], means[ok]
+    liquid = inst.liquid_ri if inst.liquid_ri is not None else 1.79
+    zone_lo = liquid - LIQUID_DRIFT[0]
+    scale = means[(values >= inst.first) & (values <= zone_lo - inst.step)]
+    beyond = means[values >= zone_lo]
+    if scale.size < 20 or beyond.size < 3:
+        return None
+    scale_level, beyond_level = float(np.percentile(scale, 90)), float(np.percentile(beyond, 90))
+    if not scale_level <= DARK_SCALE_RATIO * beyond_level:
+        return None
+    # where the field turns bright: the rise to half-way must lie in the liquid's zone, not
+    # below it (a stone's edge the profile missed)
+    order = np.argsort(values)
+    values, means = values[order], means[order]
+    top = int(np.argmax(means))
+    dim = np.flatnonzero(means[:top] < 0.5 * (scale_level + beyond_level))
+    onset = float(values[dim[-1] + 1]) if dim.size else float(values[0])
+    if onset < zone_lo - 0.5 * inst.step:
+        return None
+    return {"scale_level": scale_level, "beyond_level": beyond_level, "bright_from": onset}
 
 
 def _dominant_step(profile: Profile, period: float, half: int, radius: float, lo=None, hi=None, reach=0.85):
@@ -174,9 +272,12 @@ def read_photo(path, instrument: Instrument | None = None, calibration=None, ove
     if result.status in ("no_edge", "rejected") and evidence and evidence.get("circle") is not None:
         # A spot (distance) view shows no shadow edge across the field; only then is the
         # spot detector asked, so a flat-facet reading never pays for it nor turns into one.
-        from critline.photo.spot import read_spot_view
+        from critline.photo.spot import might_be_spot_view, read_spot_view
 
-        spot = read_spot_view(photo, evidence["circle"], inst, calibration, name)
+        frame = evidence.get("frame")
+        spot = None
+        if frame is None or might_be_spot_view(frame):
+            spot = read_spot_view(photo, evidence["circle"], inst, calibration, name)
         if spot is not None:
             result = spot
     if overlay_dir is not None:
@@ -197,15 +298,15 @@ def _sha_or_empty(path) -> str:
 
 
 def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
-    w, h = photo.width, photo.height
-    rc = _reduce_for(min(w, h), COARSE_SHORT)
-    coarse = decode(photo, rc, grey=True)
+    base, rb = _base_image(photo)
+    coarse, rc = _coarse_grey(photo, base, rb)
     fr = find_field(coarse, rc)
+    del coarse
     if fr.circle is None:
         raise PhotoRejected(fr.reason)
     circle = fr.circle
-    rw = _reduce_for(2 * circle.r, WORK_DIAMETER)
-    rgb = decode(photo, rw, raw=True)
+    rgb, rw = _working_rgb(photo, circle, base, rb)
+    del base
     wcx, wcy, wr = (circle.cx - (rw - 1) / 2) / rw, (circle.cy - (rw - 1) / 2) / rw, circle.r / rw
     grey_w = cv2.cvtColor(rgb, cv2.COLOR_RGB2GRAY)
     axis = axis_angle(grey_w, wcx, wcy, wr)
@@ -287,6 +388,14 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
         # only faint features and no side darker than the other: no stone edge, and no value for the
         # faint feature since the direction of the scale is not known
         analysis = _NoEdges(getattr(analysis, "light", "unknown"), tuple(getattr(analysis, "flags", ())))
+    if analysis.status == "no_edge" and not analysis.edges and decided.get("down") is not None:
+        beyond = _bright_only_beyond(frame, grads, inst)
+        if beyond is not None:
+            # no step on the profile, but the whole field is dark up to the liquid's zone
+            figures.update({f"over_limit_{k}": v for k, v in beyond.items()})
+            flags.append("liquid_edge_beyond_profile")
+            analysis = _NoEdges(getattr(analysis, "light", "unknown"), tuple(getattr(analysis, "flags", ())),
+                                status="over_limit")
     # quality figures
     top = float(np.percentile(bright, 95))
     clipped = float(np.mean(frame.grey[frame.inside] > 0.985)) if frame.inside.any() else 0.0
