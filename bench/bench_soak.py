@@ -208,6 +208,13 @@ def main(argv=None) -> int:
             else:
                 ok = False
                 print(f"RSS {label}: too few samples (start {n_start}, end {n_end}); run more photos")
+        if last is not None:
+            # after the last result: stone analysis and the reports (they count in the "end" window)
+            tail = [s[2] for s in samples if s[0] > last]
+            if tail:
+                print(f"after the last result (analysis, reports): {wall - last:.1f} s, command RSS "
+                      f"mean {statistics.fmean(tail) / 1024:.1f} MiB, peak {max(tail) / 1024:.1f} MiB "
+                      f"({len(tail)} samples)")
         n_procs = sorted({s[4] for s in samples})
         print(f"processes below the command during the run: {n_procs}")
         try:
