@@ -15,7 +15,10 @@ Three ways to say it, in order of precedence:
    ``r030_pol90.jpg`` and ``r030_none.jpg``).
 
 Files that are not images (the synthesizer's ``*.json`` truth sidecars, notes,
-manifests) are ignored quietly; hidden files and folders are skipped.
+manifests) are ignored quietly; hidden files and folders are skipped.  A
+symbolic link (photo or stone folder) whose target lies outside the batch
+folder (the manifest's folder for a manifest) is not read: it is listed as a
+problem of kind ``refused``, one line, and the batch goes on with the rest.
 """
 
 from __future__ import annotations
@@ -83,7 +86,7 @@ class Problem:
 
     photo: str
     reason: str
-    kind: str = "rejected"  # 'rejected' | 'unreadable' | 'empty'
+    kind: str = "rejected"  # 'rejected' | 'unreadable' | 'refused' | 'empty'
 
     def line(self) -> str:
         return f"{self.photo}: {self.reason}"
@@ -178,6 +181,21 @@ def _walk_photos(top: Path, skip: set[Path]) -> list[Path]:
     return sorted(found, key=lambda p: _natural_key(str(p)))
 
 
+#: reason given for a symbolic link whose target lies outside the batch's folder
+OUTSIDE_LINK = "symbolic link to {what} outside the {where} (refused)"
+
+
+def links_outside(path: Path, root_resolved: Path) -> bool:
+    """True when ``path`` (through symbolic links anywhere on the way) ends outside ``root_resolved``.
+
+    The same rule as for calibration manifests (:mod:`critline.calibration.manifest`): the
+    resolved target must lie in the resolved folder, so a link cannot bring a file from
+    elsewhere on the disk into a batch (or its report).
+    """
+    real = _resolved(path)
+    return real != root_resolved and root_resolved not in real.parents
+
+
 def _resolved(path: Path) -> Path:
     try:
         return path.resolve()
@@ -217,16 +235,30 @@ def group_folder(folder: str | Path, *, name_pattern: str | None = None,
     except OSError as exc:
         raise UsageError(f"{root}: cannot list folder ({exc.strerror or exc})") from None
 
+    real_root = _resolved(root)
+
+    def inside(paths: list[Path], what: str) -> list[Path]:
+        kept = []
+        for p in paths:
+            if links_outside(p, real_root):
+                problems.append(Problem(_display(p, root) + ("/" if what == "a folder" else ""),
+                                        OUTSIDE_LINK.format(what=what, where="batch folder"), "refused"))
+            else:
+                kept.append(p)
+        return kept
+
     # a dangling link is kept: it is a photo the user meant, reported as unreadable later
-    loose = [p for p in entries if is_photo_name(p.name) and not p.is_dir()]
-    root_name = _resolved(root).name or "stone"
+    loose = inside([p for p in entries if is_photo_name(p.name) and not p.is_dir()], "a file")
+    root_name = real_root.name or "stone"
     if loose:
         stones.append(StoneGroup(root_name, _order([_item(p, root, root_name, rx) for p in loose])))
 
     for sub in entries:
         if sub.name.startswith(".") or not sub.is_dir() or _resolved(sub) in skip_set:
             continue
-        photos = _walk_photos(sub, skip_set)
+        if not inside([sub], "a folder"):
+            continue
+        photos = inside(_walk_photos(sub, skip_set), "a file")
         if not photos:
             problems.append(Problem(_display(sub, root) + "/", "no photos in this stone folder", "empty"))
             continue
@@ -287,6 +319,7 @@ def read_manifest(manifest: str | Path, *, name_pattern: str | None = None) -> G
         raise UsageError(f"{manifest}: unknown column(s) {', '.join(sorted(unknown))}")
 
     base = Path(os.path.abspath(manifest.parent))
+    real_base = _resolved(base)
     by_stone: dict[str, list[PhotoItem]] = {}
     sg_by_stone: dict[str, float] = {}
     problems: list[Problem] = []
@@ -337,6 +370,10 @@ def read_manifest(manifest: str | Path, *, name_pattern: str | None = None) -> G
         seen.add(display)
         if not is_photo_name(target.name):
             problems.append(Problem(display, "not a photo file type this tool reads", "unreadable"))
+            continue
+        if links_outside(target, real_base):
+            problems.append(Problem(display, OUTSIDE_LINK.format(what="a file", where="manifest's folder"),
+                                    "refused"))
             continue
         by_stone.setdefault(stone, []).append(
             PhotoItem(path=target, display=display, stone=stone, rotation=rotation,

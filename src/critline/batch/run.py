@@ -16,6 +16,9 @@ from critline.errors import EXIT_OK, EXIT_REJECTED
 from critline.instrument import DEFAULT, Instrument
 from critline.readings import rejected
 
+#: problem kinds of a photo that gave no result (an empty stone folder is not one)
+NO_RESULT = ("rejected", "unreadable", "refused")
+
 
 @dataclass(frozen=True)
 class BatchResult:
@@ -53,8 +56,8 @@ class BatchResult:
 
     @property
     def exit_code(self) -> int:
-        """0 when every photo got a result, 3 when at least one was rejected or unreadable."""
-        bad = any(p.kind in ("rejected", "unreadable") for p in self.problems)
+        """0 when every photo got a result, 3 when at least one was rejected, unreadable or refused."""
+        bad = any(p.kind in NO_RESULT for p in self.problems)
         return EXIT_REJECTED if bad else EXIT_OK
 
 
@@ -173,7 +176,7 @@ def run_batch(source: str | Path, *, calibration=None, instrument: Instrument | 
     problems = tuple(photo_problems(stones)) + grouping.problems
     n_photos = sum(len(s.photos) for s in stones)
     counts = {"photos": n_photos, "read": len(tasks), "cached": n_cached,
-              "rejected": sum(p.kind in ("rejected", "unreadable") for p in problems)}
+              "rejected": sum(p.kind in NO_RESULT for p in problems)}
     return BatchResult(source=os.fspath(source), out_dir=out_dir,
                        calibration_id=getattr(calibration, "id", None), instrument=instrument,
                        stones=stones, problems=problems, counts=counts,
