@@ -2,6 +2,12 @@
 
 Both kinds of row share the columns; a column that does not apply to a row is
 empty.  RI values have four decimals.
+
+Text that a spreadsheet would take for a formula (a cell starting with ``=``,
+``+``, ``-``, ``@``, a tab or a carriage return; file and stone names come
+from the user's disk) gets a leading apostrophe, as the OWASP "CSV Injection"
+guidance recommends; a cell that is a number (``-0.0030``, a rotation of
+``-30``) is left as it is.  The optic sign therefore reads ``'+`` / ``'-``.
 """
 
 from __future__ import annotations
@@ -19,6 +25,28 @@ COLUMNS = (
     "edge_2", "edge_2_uncertainty", "liquid_edge", "spot", "spot_uncertainty", "light", "flags",
     "reason",
 )
+
+
+#: first characters that make a spreadsheet read a cell as a formula (OWASP, "CSV Injection")
+FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def _is_number(text: str) -> bool:
+    if text != text.strip():
+        return False
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
+
+
+def guard_cell(text: str) -> str:
+    """``text`` with a leading apostrophe when a spreadsheet would read it as a formula;
+    numbers (a negative one too) unchanged."""
+    if text.startswith(FORMULA_START) and not _is_number(text):
+        return "'" + text
+    return text
 
 
 def _fmt(x) -> str:
@@ -89,5 +117,5 @@ def iter_batch_csv(result) -> Iterator[str]:
         buf.seek(0)
         buf.truncate()
         for row in stone_rows(stone):
-            writer.writerow({k: _fmt(row.get(k)) for k in COLUMNS})
+            writer.writerow({k: guard_cell(_fmt(row.get(k))) for k in COLUMNS})
         yield buf.getvalue()
