@@ -10,8 +10,17 @@ An instrument file is a small TOML document::
     long_every = 10       # every 10th longer still
     labelled_every = 10   # which graduations carry a printed value (0: none)
     liquid_ri = 1.79      # contact liquid index, sets the limit of the instrument
+    prism_glass = "N-LASF31A"   # optional: the prism glass's dispersion formula, by name
 
 All keys are optional; missing ones take the defaults of :data:`DEFAULT`.
+
+``prism_glass`` names a Sellmeier formula of the glass table
+``critline/synth/data/glasses.csv`` (each row with its published source); it is
+used only to read white-light photos (:mod:`critline.photo.whitelight`).  Left
+out (or empty) the instrument names no glass and the white-light reading takes
+its default; such an instrument's :meth:`Instrument.to_dict` has no
+``prism_glass`` key, so files, sidecars and cache keys written before the key
+existed are unchanged.
 """
 
 from __future__ import annotations
@@ -31,6 +40,7 @@ class Instrument:
     long_every: int = 10
     labelled_every: int = 10
     liquid_ri: float = 1.79
+    prism_glass: str = ""  # "" = not named (white-light reading takes its default glass)
 
     @property
     def count(self) -> int:
@@ -55,7 +65,10 @@ class Instrument:
         return "short"
 
     def to_dict(self) -> dict:
-        return asdict(self)
+        d = asdict(self)
+        if not d["prism_glass"]:
+            del d["prism_glass"]  # as before the key existed (sidecars, cache keys)
+        return d
 
 
 DEFAULT = Instrument()
@@ -87,4 +100,10 @@ def load_instrument(path: str | Path | None) -> Instrument:
                                for k, v in data.items()})
     if not (1.0 < inst.first < inst.last < 3.5) or inst.step <= 0 or inst.count < 5:
         raise InstrumentError(f"{path}: first/last/step do not describe a usable scale")
+    if inst.prism_glass:
+        from critline.synth.dispersion import glasses  # plain data table, no rendering
+
+        if inst.prism_glass not in glasses():
+            raise InstrumentError(f"{path}: prism_glass {inst.prism_glass!r} is not in the glass table "
+                                  f"(known: {', '.join(sorted(glasses()))})")
     return inst

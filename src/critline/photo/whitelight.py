@@ -31,11 +31,14 @@ Method
    kept as a per-channel systematic term (:data:`CHANNEL_SYSTEMATIC`).
 2. Each channel onset becomes the stone's index at its effective wavelength,
    ``n_c = s_c N(lambda_c) / N_D``, with the prism glass's Sellmeier formula.
-   The instrument file names no glass, so the default is the SCHOTT N-LASF31A
-   formula of the synthesizer's glass table (``critline/synth/data/glasses.csv``,
-   ``N_D`` = 1.8828, Abbe number 40.8); only the ratio ``N(lambda) / N_D``
-   is used, so a prism of slightly different index but similar dispersion
-   reads the same.
+   The instrument file may name the glass (its optional ``prism_glass`` key,
+   see :mod:`critline.instrument`; :func:`prism_glass`); when it names none the
+   default is the SCHOTT N-LASF31A formula of the glass table
+   (``critline/synth/data/glasses.csv``, ``N_D`` = 1.8828, Abbe number 40.8).
+   Only the ratio ``N(lambda) / N_D`` is used, so a prism of slightly
+   different index but similar dispersion reads the same.  (The reader does
+   not yet pass the instrument's glass down to :func:`reread_edges`; until it
+   does, photos are read with the default.)
 3. A two-term Cauchy formula ``n(lambda) = n_D + B (1/lambda^2 - 1/589.3^2)``
    is fitted to the channel indices by weighted least squares; ``n_D`` is the
    reading.  With three channels one degree of freedom is left: a poor fit
@@ -84,6 +87,9 @@ DEFAULT_GLASS = "N-LASF31A"
 #: Stretch of the shoulder taken as hidden when a channel is clipped right above its
 #: onset (over-exposure by 1.5-2x hides 0.003-0.008, see critline.photo.edges).
 CLIPPED_HIDDEN = 0.004
+#: Linear level (of full scale 1) from which a channel's bright field is taken as clipped: the
+#: sRGB codes 250 and 251 of 255 decode to 0.956 and 0.965, so this catches 8-bit values of 251-255.
+FULL_SCALE = 0.96
 #: Smallest spread of the channel edges taken as a coloured fringe (scale units).
 FRINGE_MIN = 0.0015
 #: A dispersion estimate is reported only below this relative uncertainty.
@@ -119,12 +125,34 @@ def effective_wavelengths() -> dict[str, float]:
     return {c: float(w[i] @ WAVELENGTHS_NM) for i, c in enumerate(CHANNELS)}
 
 
+def prism_glass(instrument=None):
+    """The prism glass's dispersion formula named by an instrument (its ``prism_glass`` key).
+
+    Parameters
+    ----------
+    instrument : critline.instrument.Instrument, str or None
+        An instrument (its ``prism_glass``), a glass name, or None.  An empty
+        name or None gives :data:`DEFAULT_GLASS`.
+
+    Returns
+    -------
+    SellmeierFormula
+        From the glass table ``critline/synth/data/glasses.csv`` (published
+        catalogue formulas, each row with its source).
+    """
+    from critline.synth.dispersion import glasses  # plain data table
+
+    name = getattr(instrument, "prism_glass", instrument) or DEFAULT_GLASS
+    table = glasses()
+    if name not in table:
+        raise ValueError(f"prism glass {name!r} is not in the glass table (known: {', '.join(sorted(table))})")
+    return table[name]
+
+
 def prism_ratio(wavelength_nm, glass=None):
     """``N(lambda) / N_D`` of the prism glass (Sellmeier formula with an ``index`` method)."""
     if glass is None:
-        from critline.synth.dispersion import glass as glass_table  # plain data table
-
-        glass = glass_table(DEFAULT_GLASS)
+        glass = prism_glass()
     return np.asarray(glass.index(wavelength_nm), float) / float(glass.index(SODIUM_D_NM))
 
 
@@ -257,30 +285,35 @@ def channel_edges(values, rgb, *, liquid_ri=None, prism_index=1.88):
         top = float(np.percentile(channel, 99.8))
         if not top > 0:
             continue
+        full_scale = top >= FULL_SCALE  # before the scaling below hides it
         channel = channel / top
         noise = max(float(np.median(np.abs(np.diff(channel)))) * 1.4826 / math.sqrt(2.0), 1e-5)
         a = analyse_profile(values, channel, noise, liquid_ri=liquid_ri, prism_index=prism_index)
-        stones = tuple(_mark_clipped(e, values, channel) for e in a.edges
+        stones = tuple(_mark_clipped(e, values, channel, full_scale) for e in a.edges
                        if e.kind == "stone" and e.contrast >= 0.1)
         if stones:
             out[name] = stones
     return out
 
 
-def _mark_clipped(edge, values, channel):
-    """The edge with figure ``channel_clipped``: the channel sits at its top right above the onset.
+def _mark_clipped(edge, values, channel, full_scale=False):
+    """The edge with figure ``channel_clipped``: the channel is clipped at this edge.
 
-    Over-exposure clips a channel before the phone's white balance scales it,
-    so the plateau lies wherever the channel's top is: samples exactly at the
-    channel's 90th percentile (8-bit values at the clip level) over at least 30 % of
-    the stretch just above the onset.  A clipped corner leaves the onset biased low.
+    Two signs of a clipped channel: its bright field reaches the top of the
+    decoded range (``full_scale``: the channel's 99.8th percentile at or above
+    :data:`FULL_SCALE` of linear full scale, i.e. 8-bit values at 251-255, where
+    the sensor or the encoder clipped it); or, when the phone's white balance
+    scaled the channel after the clip, samples exactly at the channel's 90th
+    percentile over at least 30 % of the stretch just above the onset.  A
+    clipped corner leaves the onset biased low (on tuning seeds 500000-500099 by
+    0.0015-0.006 for channels at full scale, against 0.0006 for the others).
     """
     values = np.asarray(values, float)
     reach = max(4.0 * edge.width, 0.012)
     above = (values > edge.value) & (values <= edge.value + reach)
     top = float(np.percentile(channel, 90))  # a clipped field sits at one exact level
     at_top = np.abs(channel[above] - top) <= 1e-6 * abs(top)
-    clipped = bool(np.count_nonzero(at_top) >= 3 and np.mean(at_top) >= 0.3)
+    clipped = bool(full_scale or (np.count_nonzero(at_top) >= 3 and np.mean(at_top) >= 0.3))
     return replace(edge, figures=dict(edge.figures, channel_clipped=clipped))
 
 
@@ -302,6 +335,19 @@ def fringe_light(per_channel) -> str:
     if abs(spread) > max(FRINGE_MIN, 4 * math.hypot(u[0], u[-1])) and \
             np.all(np.sign(steps) == np.sign(steps[0])):
         return "white"
+    # over-exposure clips the red and green channels first (illuminant A is reddish) and a clipped
+    # channel's onset is biased low, which can break the order; an unclipped blue edge still
+    # below both clipped ones is a fringe (in monochromatic light the unclipped blue edge would
+    # lie above the low-biased clipped ones)
+    blue = firsts.get("blue")
+    others = [firsts[c] for c in ("red", "green") if c in firsts]
+    if blue is not None and len(others) == 2 and not blue.figures.get("channel_clipped") and \
+            all(f.figures.get("channel_clipped") for f in others):
+        ub = float(blue.figures.get("stat_uncertainty") or blue.uncertainty)
+        gap = min(f.value for f in others) - blue.value
+        uo = max(float(f.figures.get("stat_uncertainty") or f.uncertainty) for f in others)
+        if gap > max(FRINGE_MIN, 4 * math.hypot(ub, uo)):
+            return "white"
     return "unknown"
 
 
@@ -315,14 +361,20 @@ def _channel_parts(e, overexposed=False):
     hidden = float(e.figures.get("hidden_by_clipping") or 0.0)
     if e.figures.get("channel_clipped") or overexposed:
         hidden = max(hidden, CLIPPED_HIDDEN)
-    hidden *= 0.5
+    # half the hidden stretch, as in critline.photo.edges; a channel found clipped by its
+    # own test is kept only when fewer than two unclipped channels remain, and its onset
+    # can then sit low by the whole stretch (0.0015-0.006 on tuning seeds 500000-500099)
+    hidden *= 1.0 if e.figures.get("channel_clipped") else 0.5
     stat = float(e.figures.get("stat_uncertainty") or e.uncertainty)
     floor = float(e.figures.get("floor") or 0.0)
     return math.hypot(stat, hidden), math.sqrt(max(floor**2 - hidden**2, 0.0))
 
 
-def reread_edges(edges, values, rgb, *, liquid_ri=None, prism_index=1.88, per_channel=None):
+def reread_edges(edges, values, rgb, *, liquid_ri=None, prism_index=1.88, per_channel=None, glass=None):
     """Stone edges of a white-light profile re-read at 589.3 nm (hook of :mod:`critline.photo.edges`).
+
+    ``glass``: the prism glass's dispersion formula (:func:`prism_glass` of the
+    instrument); None takes :data:`DEFAULT_GLASS`.
 
     The luminance profile of a white-light fringe may split into two steps (blue
     and red), so the number of stone edges is taken from the channels: the
@@ -357,17 +409,18 @@ def reread_edges(edges, values, rgb, *, liquid_ri=None, prism_index=1.88, per_ch
     out = []
     for i in range(k):
         fits = {c: v[i] for c, v in agree.items()}
-        clean = {c: f for c, f in fits.items()
-                 if not (f.figures.get("hidden_by_clipping") or f.figures.get("channel_clipped"))}
+        # the edge fit's own hidden_by_clipping is set for any flat bright field once the
+        # channel is scaled to its top, so only the channel's own clip test decides here
+        clean = {c: f for c, f in fits.items() if not f.figures.get("channel_clipped")}
         if len(clean) >= 2:
             fits = clean  # a clipped corner biases a channel's onset low
         ref = fits.get("green", next(iter(fits.values())))
         lum = min(stones, key=lambda e, ref=ref: abs(e.value - ref.value)) if stones else ref
-        out.append(white_light_edge(lum, fits, v_sorted, rgb_sorted, luminance_stones=len(stones)))
+        out.append(white_light_edge(lum, fits, v_sorted, rgb_sorted, luminance_stones=len(stones), glass=glass))
     return out + others
 
 
-def white_light_edge(edge, fits, values, rgb_sorted, luminance_stones=1):
+def white_light_edge(edge, fits, values, rgb_sorted, luminance_stones=1, glass=None):
     """One stone edge re-read at 589.3 nm from its channel edge fits (channel -> EdgeFit)."""
     from critline.photo.edges import EdgeFit
 
@@ -376,7 +429,7 @@ def white_light_edge(edge, fits, values, rgb_sorted, luminance_stones=1):
     parts = {c: _channel_parts(f, overexposed) for c, f in fits.items()}
     onsets = {c: (f.value, parts[c][0]) for c, f in fits.items()}
     common = float(np.median([p[1] for p in parts.values()]))
-    est = estimate_at_sodium(onsets, common_floor=common)
+    est = estimate_at_sodium(onsets, common_floor=common, glass=glass)
     boundary = yellow_green_boundary(values, rgb_sorted, edge.value)
     figures = dict(edge.figures)
     figures.update({

