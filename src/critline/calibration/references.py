@@ -4,20 +4,27 @@ A manifest may name a reference stone by its key (``quartz-o``, ``fluorite``
 ...) instead of giving a number; the table gives the RI at 589.3 nm, a
 tolerance (standard uncertainty for natural variation; 0 for a formula value
 of a synthetic crystal or glass) and the published source.
+
+The package reads its own copy, ``critline/calibration/data/references.csv``
+(package data, through :mod:`importlib.resources`), so an installed wheel has
+it too; ``tests/calibration/test_references.py`` checks that the copy is the
+repository's table byte for byte.
 """
 
 from __future__ import annotations
 
 import csv
+import io
 import math
 from dataclasses import dataclass
 from functools import lru_cache
+from importlib import resources
 from pathlib import Path
 
 from critline.calibration.fitting import CalibrationError
 
-#: the repository's top-level calibration/ folder (src/critline/calibration -> repo)
-TABLE = Path(__file__).resolve().parents[3] / "calibration" / "references.csv"
+#: the table shipped with the package (a copy of the repository's calibration/references.csv)
+TABLE = resources.files("critline.calibration").joinpath("data", "references.csv")
 
 
 @dataclass(frozen=True)
@@ -34,13 +41,13 @@ class ReferenceMaterial:
 
 @lru_cache(maxsize=4)
 def load_references(path: str | Path | None = None) -> dict[str, ReferenceMaterial]:
-    """Read the table; keys are lower case."""
+    """Read the table (default: the package's copy, :data:`TABLE`); keys are lower case."""
     path = Path(path) if path is not None else TABLE
     try:
-        with path.open(newline="", encoding="utf-8") as fh:
-            rows = list(csv.DictReader(fh))
+        text = path.read_text(encoding="utf-8")
     except OSError as exc:
         raise CalibrationError(f"{path}: cannot read the reference table ({exc.strerror})") from None
+    rows = list(csv.DictReader(io.StringIO(text, newline="")))
     out = {}
     for i, r in enumerate(rows, start=2):
         try:
