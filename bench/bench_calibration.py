@@ -13,6 +13,13 @@ the reader's own fallback: each unknown photographed again with the graduations 
 reticle (ink 0, no labels, no base line), read with the calibration, which must then answer in
 mode ``field_frame``; its error against its stated uncertainty is printed too.
 
+Beside the fallback's error the bench prints its *geometric floor*: the phone's tilt moves the
+projected field stop's centre off the image of the eyepiece's centre, and the same outline fits a
+tilt either way (its point reflection through the outline's centre is the image under the tilt
+turned 180 degrees about the lens axis), which puts the same shadow edge at two field positions.
+Half their gap, in RI through the true scale, is what no reading of the stop's outline can
+resolve; it is computed from the synthesizer's homography, not from the pixels.
+
 Held-out seeds: setups 91000.. (one per setup), photos 910000.. ; never tune anything on them.
 ``--seed-base`` moves both ranges (e.g. ``--seed-base 30000``: setups 30000.., photos 300000..)
 for tuning runs; the output then says it is not the held-out range.
@@ -45,6 +52,7 @@ import numpy as np
 from critline.calibration import ReferencePair, fit_calibration, make_calibration
 from critline.calibration.fitting import CalibrationError, SuspectReferenceError
 from critline.synth import ground_truth, random_scene, write_photo
+from critline.synth.render import eyepiece_to_frame, project, scale_map
 
 # A lab's reference set (calibration/references.csv; each value checked against its paper's
 # dispersion formula in tests/calibration/test_references.py).  One photo per edge.
@@ -144,6 +152,27 @@ class Measure:
         return (reading.mode, stones[0].ri, stones[0].uncertainty, reading.quality.flags)
 
 
+def tilt_ambiguity(scene, u0: float) -> float:
+    """Half the gap (field radii) between the two field positions an edge at eyepiece position
+    ``u0`` has under the scene's tilt and under the tilt that gives the same stop outline
+    turned the other way (the outline's point reflection through its centre)."""
+    h = eyepiece_to_frame(scene)
+    t = np.linspace(0, 2 * np.pi, 720, endpoint=False)
+    x, y = project(h, np.cos(t), np.sin(t)).T
+    # centre of the projected outline (a conic): least-squares conic, then its centre
+    design = np.stack([x * x, x * y, y * y, x, y, np.ones_like(x)], axis=1)
+    norm = np.abs(design).max(axis=0)
+    a, b, c, d, e, _ = np.linalg.svd(design / norm)[2][-1] / norm
+    centre = np.linalg.solve([[2 * a, b], [b, 2 * c]], [-d, -e])
+    ends = project(h, np.array([u0, u0]), np.array([-0.5, 0.5]))
+    back = np.linalg.inv(h) @ np.vstack([(2 * centre - ends).T, np.ones(2)])
+    back = back[:2] / back[2]
+    along = back[:, 1] - back[:, 0]
+    normal = np.array([along[1], -along[0]]) / np.hypot(*along)
+    normal = normal if normal[0] >= 0 else -normal
+    return abs(u0 + float(normal @ back[:, 0])) / 2
+
+
 def p95(values) -> float:
     return float(np.percentile(np.abs(values), 95)) if len(values) else math.nan
 
@@ -159,7 +188,7 @@ def run(args) -> int:
     err_cal, err_nominal, err_field, err_exact = [], [], [], []
     models, failed, extrapolated, suspects, with_field = {}, 0, 0, 0, 0
     z_cal = []
-    fb_err, fb_z, fb_outcomes, fb_lower = [], [], {}, 0
+    fb_err, fb_z, fb_outcomes, fb_lower, fb_floor = [], [], {}, 0, []
     seed = photo_seed0
     for k in range(args.setups):
         setup = setup_scene(k, setup_seed0)
@@ -213,6 +242,12 @@ def run(args) -> int:
                     fb_err.append(got - ri)
                     fb_z.append((got - ri) / sigma)
                     fb_lower += "lower_precision" in fflags
+                    # the floor: the tilt ambiguity of this photo, in RI through the true scale
+                    scene = photo_scene(dict(setup, **NO_GRADUATIONS), ri, seed, args.megapixels)
+                    _, u0 = truth_edge(scene)
+                    smap = scale_map(scene)
+                    slope = float(smap.value(u0 + 1e-3) - smap.value(u0 - 1e-3)) / 2e-3
+                    fb_floor.append(slope * tilt_ambiguity(scene, u0))
     z = np.array(z_cal)
     what = ("photos rendered by critline.synth and read by critline.photo.read_photo"
             if args.mode == "photos" else
@@ -234,7 +269,8 @@ def run(args) -> int:
             ("calibrated", err_cal, 0.001),
             ("calibration map alone (exact position)", err_exact, None),
             ("field map on graduation readings' position", err_field, None),
-            ("field-frame fallback (reader, no graduations)", fb_err, 0.003)]
+            ("field-frame fallback (reader, no graduations)", fb_err, 0.003),
+            ("  its floor: tilt sign unseen in the outline", fb_floor, None)]
     print(f"{'|RI error| over the calibrated range':<42} {'median':>8} {'p95':>8} {'max':>8}  target")
     for name, e, target in rows:
         e = np.abs(np.array(e))

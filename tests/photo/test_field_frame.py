@@ -8,7 +8,14 @@ import pytest
 from PIL import Image
 
 from critline.photo.field import find_field, refine_stop
-from critline.photo.frame import make_frame
+from critline.photo.frame import (
+    PHONE_FOCAL_MIN,
+    PHONE_TILT_MAX,
+    TILT_RMS_FRACTION,
+    FieldFrame,
+    make_frame,
+    perspective_sigma,
+)
 from critline.photo.reading import FIELD_POSITION_SIGMA, read_photo
 from tests.photo.drawing import draw_eyepiece
 
@@ -100,6 +107,69 @@ def test_crescent_ramp_does_not_pull_the_stop():
     assert out is not None
     # within 1 % of the radius (a crescent-side fit would be several per cent off)
     assert np.hypot(out.cx - cx, out.cy - cy) < 0.01 * r and abs(out.r - r) < 0.01 * r
+
+
+def test_stop_covariance_follows_the_scatter_and_the_arc_seen():
+    # the stated covariance of the centre against the spread over noise draws (a factor of 2:
+    # the algebraic fit's formal covariance, Kasa 1976, is first order), and larger when a
+    # dark surround hides half the stop's outline
+    got, sig = [], []
+    for seed in range(8):
+        img, truth = draw_eyepiece(size=(480, 640), angle_deg=0.0, edges=(1.62,), seed=seed, noise=0.03, ink=0.0)
+        out = refine_stop(img, truth["field"]["cx"], truth["field"]["cy"], truth["field"]["r"])
+        got.append(out.cx)
+        sig.append(np.sqrt(out.cov[0][0]))
+    spread, stated = float(np.std(got, ddof=1)), float(np.median(sig))
+    assert 0.5 * spread < stated < 2.0 * spread + 0.02, (spread, stated)
+    img, truth = draw_eyepiece(size=(480, 640), angle_deg=0.0, edges=(1.62,), seed=0, noise=0.03, ink=0.0)
+    cx = int(truth["field"]["cx"])
+    hidden = img.copy()
+    hidden[:, :cx] = (hidden[:, :cx] * 0.02).astype(np.uint8)  # left half of the stop not seen
+    half = refine_stop(hidden, truth["field"]["cx"], truth["field"]["cy"], truth["field"]["r"])
+    full = refine_stop(img, truth["field"]["cx"], truth["field"]["cy"], truth["field"]["r"])
+    assert half is not None and half.cov[0][0] > 2 * full.cov[0][0]
+
+
+def test_perspective_sigma_against_the_tilted_camera():
+    # the synthesizer images the eyepiece through a camera turned about its centre, K R K^-1
+    # (Hartley and Zisserman 2004, sec. 8.4): at the largest tilt, along the axis, with the
+    # shortest focal length, the stop's outline centre sits tan(t) tan(a) radii off the image
+    # of the eyepiece's centre; perspective_sigma is that bound times TILT_RMS_FRACTION
+    from critline.synth import random_scene
+    from critline.synth.render import eyepiece_to_frame, project
+
+    for diameter in (0.4, 0.9):
+        scene = random_scene(5, field_diameter=diameter, tilt_deg=float(np.rad2deg(PHONE_TILT_MAX)),
+                             tilt_axis_deg=90.0, focal_ratio=PHONE_FOCAL_MIN, axis_angle_deg=0.0,
+                             field_cx=0.5, field_cy=0.5)
+        h = eyepiece_to_frame(scene)
+        t = np.linspace(0, 2 * np.pi, 3600, endpoint=False)
+        outline = project(h, np.cos(t), np.sin(t))
+        xs, ys = outline[:, 0], outline[:, 1]
+        area = 0.5 * np.sum(xs * np.roll(ys, -1) - np.roll(xs, -1) * ys)
+        centre = np.array([np.sum((xs + np.roll(xs, -1)) * (xs * np.roll(ys, -1) - np.roll(xs, -1) * ys)),
+                           np.sum((ys + np.roll(ys, -1)) * (xs * np.roll(ys, -1) - np.roll(xs, -1) * ys))]) / (6 * area)
+        r = np.sqrt(abs(area) / np.pi)
+        shift = np.hypot(*(centre - project(h, np.array([0.0]), np.array([0.0]))[0])) / r
+        bound = perspective_sigma(r, (scene.height, scene.width)) / TILT_RMS_FRACTION
+        assert bound == pytest.approx(shift, rel=0.05), (diameter, shift, bound)
+
+
+def test_position_sigma_parts():
+    grey = np.zeros((5, 5), np.float32)
+    cov = ((4.0, 0.0, 0.0), (0.0, 1.0, 0.0), (0.0, 0.0, 9.0))
+    frame = FieldFrame(grey, np.zeros((5, 5, 3), np.float32), grey > 0, 0.0, 2.0, 2.0, 2, 1, 100.0,
+                       stop=(2.0, 2.0, 100.0), perspective=0.02, stop_cov=cov)
+    # at the centre: the tilt's part and the centre's along the axis (x here): 2 px of 100
+    assert float(frame.position_sigma(0.0)) == pytest.approx(np.hypot(0.02, 0.02))
+    # at the stop's rim the tilt moves nothing; the radius' part (3 px) and the centre's remain
+    assert float(frame.position_sigma(1.0)) == pytest.approx(np.hypot(0.02, 0.03))
+    assert float(frame.position_sigma(-0.5)) == pytest.approx(np.sqrt((0.02 * 0.75) ** 2 + 0.02**2 + 0.015**2))
+    # the axis turned by 90 degrees: the centre's part is its y variance (1 px)
+    turned = FieldFrame(grey, np.zeros((5, 5, 3), np.float32), grey > 0, np.pi / 2, 2.0, 2.0, 2, 1, 100.0,
+                        stop=(2.0, 2.0, 100.0), perspective=0.0, stop_cov=cov)
+    assert float(turned.position_sigma(0.0)) == pytest.approx(0.01)
+    assert turned.flipped().stop_cov == cov and turned.flipped().perspective == turned.perspective
 
 
 class _Calibration:

@@ -280,8 +280,13 @@ class StopOutline:
         Centre and radius of the circle through the stop's edge (its half-brightness line).
     rays : int
         Number of radial profiles whose edge took part in the final fit.
+    n_rays : int
+        Number of radial profiles drawn (evenly around the circle).
     rms : float
         RMS distance of those edge points from the circle (pixels).
+    cov : tuple of tuples (3 x 3)
+        Covariance of ``(cx, cy, r)`` (pixels squared) from the fit's own scatter: large when
+        the stop shows only short arcs (a crescent or the shadow's dark half hiding the rest).
     """
 
     cx: float
@@ -289,6 +294,8 @@ class StopOutline:
     r: float
     rays: int
     rms: float
+    cov: tuple[tuple[float, ...], ...] = ((0.0, 0.0, 0.0), (0.0, 0.0, 0.0), (0.0, 0.0, 0.0))
+    n_rays: int = 360
 
 
 def _circle_lsq(x, y, w):
@@ -298,6 +305,24 @@ def _circle_lsq(x, y, w):
     (d, e, f), *_ = np.linalg.lstsq(a, b, rcond=None)
     cx, cy = -d / 2, -e / 2
     return float(cx), float(cy), float(np.sqrt(max(cx * cx + cy * cy - f, 1e-9)))
+
+
+def _circle_cov(x, y, w, fit) -> np.ndarray:
+    """Covariance of ``(cx, cy, r)`` of :func:`_circle_lsq`: the linear least-squares covariance
+    ``s**2 (A^T A)^-1`` of ``(D, E, F)`` with ``s**2`` the residual variance, carried to the
+    centre and radius through the Jacobian of ``cx = -D/2, cy = -E/2, r = sqrt(cx^2 + cy^2 - F)``."""
+    cx, cy, r = fit
+    a = np.stack([x, y, np.ones_like(x)], axis=1) * w[:, None]
+    b = -(x * x + y * y) * w
+    p = np.array([-2 * cx, -2 * cy, cx * cx + cy * cy - r * r])
+    dof = max(len(x) - 3, 1)
+    s2 = float(np.sum((a @ p - b) ** 2)) / dof
+    try:
+        cov_p = s2 * np.linalg.inv(a.T @ a)
+    except np.linalg.LinAlgError:
+        return np.full((3, 3), np.inf)
+    jac = np.array([[-0.5, 0.0, 0.0], [0.0, -0.5, 0.0], [-cx / (2 * r), -cy / (2 * r), -1 / (2 * r)]])
+    return jac @ cov_p @ jac.T
 
 
 def refine_stop(rgb: np.ndarray, cx: float, cy: float, r: float, n_rays: int = 360) -> StopOutline | None:
@@ -397,4 +422,6 @@ def refine_stop(rgb: np.ndarray, cx: float, cy: float, r: float, n_rays: int = 3
     res = np.hypot(x[keep] - fit[0], y[keep] - fit[1]) - fit[2]
     if abs(fit[2] / r - 1) > 0.1 or np.hypot(fit[0] - cx, fit[1] - cy) > 0.1 * r:
         return None
-    return StopOutline(fit[0], fit[1], fit[2], int(keep.sum()), float(np.sqrt(np.mean(res**2))))
+    cov = _circle_cov(x[keep], y[keep], wt[keep], fit)
+    return StopOutline(fit[0], fit[1], fit[2], int(keep.sum()), float(np.sqrt(np.mean(res**2))),
+                       tuple(tuple(float(v) for v in row) for row in cov), int(n_rays))

@@ -24,6 +24,16 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
+#: shortest phone focal length allowed for, as a fraction of the frame's long side: about a
+#: 24 mm-equivalent lens, the widest main camera phones use (from memory)
+PHONE_FOCAL_MIN = 0.67
+#: largest tilt of the phone against the eyepiece allowed for, radians (the photo envelope of
+#: design.md: "perspective tilt up to about 10 degrees")
+PHONE_TILT_MAX = float(np.deg2rad(10.0))
+#: RMS of ``tan(t) cos(phi) / tan(t_max)`` for a tilt ``t`` uniform in ``[0, t_max]`` in a direction
+#: ``phi`` uniform around the circle: ``(1/3 * 1/2) ** 0.5`` (tan t ~ t below 10 degrees)
+TILT_RMS_FRACTION = float(np.sqrt(1 / 6))
+
 
 @dataclass(frozen=True)
 class AxisEstimate:
@@ -69,6 +79,13 @@ class FieldFrame:
     #: the field stop refined at working resolution (:func:`critline.photo.field.refine_stop`),
     #: working pixels; None when not refined (then ``cx, cy, radius`` stand for it)
     stop: tuple[float, float, float] | None = None
+    #: standard uncertainty (stop radii) of a field position at the stop's centre from the phone's
+    #: unknown tilt (see :func:`perspective_sigma`); scaled by ``1 - u**2`` across the field
+    perspective: float = 0.0
+    #: covariance of the refined stop's ``(cx, cy, r)`` (working pixels squared), None if not refined
+    stop_cov: tuple[tuple[float, ...], ...] | None = None
+    #: fraction of the stop's circumference whose edge took part in the refined fit (0 if not refined)
+    stop_seen: float = 0.0
 
     def field_position(self, row):
         """Signed position of frame row(s) along the axis from the field-stop centre, in stop radii.
@@ -84,6 +101,26 @@ class FieldFrame:
         c, s = np.cos(self.angle), np.sin(self.angle)
         along = (self.cx - cx) * c + (self.cy - cy) * s  # frame centre ahead of the stop centre
         return (np.asarray(row, float) - self.half + along) / r
+
+    def position_sigma(self, position):
+        """Standard uncertainty (stop radii) of :meth:`field_position` value(s) ``position``.
+
+        Two parts in quadrature: the refined stop's own fit (its centre along the axis and its
+        radius, from :attr:`stop_cov`; 0 when the stop was not refined -- the caller then allows
+        for the coarse circle) and the phone's tilt, ``perspective * (1 - u**2)``: to first order
+        a tilt moves a line at ``u`` by ``delta (1 - u**2)`` relative to the stop's outline,
+        ``delta`` the shift of the projected stop's centre (see :func:`perspective_sigma`).
+        """
+        u = np.asarray(position, float)
+        var = (self.perspective * (1.0 - np.clip(u * u, 0.0, 1.0))) ** 2
+        if self.stop is not None and self.stop_cov is not None:
+            r = self.stop[2]
+            c, s = np.cos(self.angle), np.sin(self.angle)
+            cov = np.asarray(self.stop_cov, float)
+            # d field_position / d (cx, cy, r)
+            g = np.stack(np.broadcast_arrays(-c / r, -s / r, -u / r), axis=-1)
+            var = var + np.einsum("...i,ij,...j->...", g, cov, g)
+        return np.sqrt(var)
 
     def to_photo(self, i, j):
         """Full-size photo (x, y) of frame coordinates (row i, column j)."""
@@ -106,7 +143,8 @@ class FieldFrame:
     def flipped(self) -> FieldFrame:
         """The same frame with the axis direction reversed (u -> -u, v -> -v)."""
         return FieldFrame(self.grey[::-1, ::-1], self.rgb[::-1, ::-1], self.inside[::-1, ::-1],
-                          self.angle + np.pi, self.cx, self.cy, self.half, self.reduce, self.radius, self.stop)
+                          self.angle + np.pi, self.cx, self.cy, self.half, self.reduce, self.radius, self.stop,
+                          self.perspective, self.stop_cov, self.stop_seen)
 
 
 def axis_angle(grey: np.ndarray, cx: float, cy: float, r: float) -> AxisEstimate:
@@ -165,6 +203,39 @@ def axis_angle(grey: np.ndarray, cx: float, cy: float, r: float) -> AxisEstimate
     return AxisEstimate(float(angle), coherence)
 
 
+def perspective_sigma(r: float, shape) -> float:
+    """Standard uncertainty (stop radii) of where the eyepiece's centre lies relative to the
+    projected field stop, from a phone tilt that the stop's outline cannot sign.
+
+    Method
+    ------
+    The eyepiece shows the stop as a cone of directions of half-angle ``a``; a camera turned by
+    ``t`` against its axis images it as an ellipse whose centre lies ``tan t tan a`` stop radii
+    (first order in ``t``) from the image of the axis, along the tilt.  Turning the camera the
+    other way about the same outline gives the same ellipse (its point reflection), so the
+    outline gives neither the sign nor, at small tilts, the size (the ellipse's elongation is of
+    second order).  What is known: ``tan a = r / f`` with the focal length ``f`` at least
+    :data:`PHONE_FOCAL_MIN` of the frame's long side, and the tilt at most :data:`PHONE_TILT_MAX`
+    in any direction; the shift along the scale axis then has RMS
+    ``TILT_RMS_FRACTION * tan(PHONE_TILT_MAX) * r / f_min``.
+
+    Parameters
+    ----------
+    r : float
+        Stop radius (pixels of the image of shape ``shape``).
+    shape : tuple
+        Image shape (rows, columns, ...).
+
+    References
+    ----------
+    Hartley, R. and Zisserman, A. (2004) *Multiple View Geometry in Computer Vision*, 2nd ed.,
+    Cambridge University Press: sec. 8.4 (a camera rotating about its centre is a homography
+    ``K R K^-1``) and sec. 2.2.3 (conics under a homography).
+    """
+    tan_a = r / (PHONE_FOCAL_MIN * max(shape[:2]))
+    return float(TILT_RMS_FRACTION * np.tan(PHONE_TILT_MAX) * tan_a)
+
+
 def make_frame(rgb: np.ndarray, cx: float, cy: float, r: float, angle: float, reduce: int,
                refine: bool = True) -> FieldFrame:
     """Resample the field so the scale axis runs down the rows.
@@ -190,6 +261,9 @@ def make_frame(rgb: np.ndarray, cx: float, cy: float, r: float, angle: float, re
 
     outline = refine_stop(rgb, cx, cy, r) if refine else None
     stop = None if outline is None else (outline.cx, outline.cy, outline.r)
+    stop_cov = None if outline is None else outline.cov
+    stop_seen = 0.0 if outline is None else outline.rays / outline.n_rays
+    perspective = perspective_sigma(r if outline is None else outline.r, rgb.shape)
     half = int(np.ceil(r)) + 2
     n = 2 * half + 1
     c, s = np.cos(angle), np.sin(angle)
@@ -206,4 +280,5 @@ def make_frame(rgb: np.ndarray, cx: float, cy: float, r: float, angle: float, re
     grey = (0.299 * warped[..., 0] + 0.587 * warped[..., 1] + 0.114 * warped[..., 2]).astype(np.float32)
     ii, jj = np.ogrid[0:n, 0:n]
     inside = valid & (((ii - half) ** 2 + (jj - half) ** 2) < (0.97 * r) ** 2)
-    return FieldFrame(grey, warped, inside, float(angle), float(cx), float(cy), half, reduce, float(r), stop)
+    return FieldFrame(grey, warped, inside, float(angle), float(cx), float(cy), half, reduce, float(r), stop,
+                      float(perspective), stop_cov, float(stop_seen))
