@@ -15,11 +15,9 @@ import pytest
 
 from critline.instrument import DEFAULT, Instrument, InstrumentError, load_instrument
 from critline.optics import SODIUM_D_NM
-from critline.photo.edges import EdgeFit
 from critline.photo.whitelight import (
     effective_wavelengths,
     estimate_at_sodium,
-    fringe_light,
     prism_glass,
     prism_ratio,
 )
@@ -106,25 +104,3 @@ def test_estimate_uses_the_named_glass():
     assert abs(default.value - truth) < 0.0005
     assert default.figures["cauchy_b_nm2"] < 0 < named.figures["cauchy_b_nm2"]
     assert default.chi2 > 10 * named.chi2
-
-
-# ------------------------------------------------------------------ fringe told under clipping
-
-
-def _fit(value, clipped, stat=0.0002):
-    return EdgeFit(value, stat, "stone", 0.8, 0.002,
-                   {"stat_uncertainty": stat, "channel_clipped": clipped})
-
-
-def test_fringe_seen_when_red_and_green_are_clipped():
-    # clipped red and green onsets sit low (their order broken), the unclipped blue edge well
-    # below both: a white-light fringe (prism dispersion puts blue lowest, Snell's law)
-    per = {"red": (_fit(1.4681, True),), "green": (_fit(1.4692, True),), "blue": (_fit(1.4650, False),)}
-    assert fringe_light(per) == "white"
-    # blue level with the clipped edges (as an unclipped channel would be in monochromatic
-    # light, where the clipped ones are biased low): no fringe
-    per_mono = dict(per, blue=(_fit(1.4690, False),))
-    assert fringe_light(per_mono) == "unknown"
-    # the same gap with blue also clipped proves nothing
-    per_all = dict(per, blue=(_fit(1.4650, True),))
-    assert fringe_light(per_all) == "unknown"

@@ -323,32 +323,43 @@ def fringe_light(per_channel) -> str:
     A coloured fringe puts the channel edges in the order of their effective
     wavelengths (all rising or all falling from blue to red) and spreads them by
     more than :data:`FRINGE_MIN` and four statistical standard deviations.
+
+    Over-exposure clips the channels and a clipped channel's onset sits low, by
+    more the more it is clipped; under monochromatic light the unclipped (or least
+    clipped) channel therefore lies *above* the others.  Two weaker signs are
+    therefore also taken as a fringe, both with the blue edge lowest (the order a
+    dense prism gives, Snell's law): the three edges falling from red to blue with
+    at least one step beyond four standard deviations; or an unclipped blue edge
+    below both clipped red and green edges, each by two standard deviations.
     """
     firsts = {c: max(v, key=lambda e: e.contrast) for c, v in per_channel.items()}
     names = [c for c in CHANNELS if c in firsts]
     if len(names) < 2:
         return "unknown"
     s = [firsts[c].value for c in names]
-    u = [float(firsts[c].figures.get("stat_uncertainty") or firsts[c].uncertainty) for c in names]
+    u = [_stat(firsts[c]) for c in names]
     steps = np.diff(s)
     spread = s[0] - s[-1]
     if abs(spread) > max(FRINGE_MIN, 4 * math.hypot(u[0], u[-1])) and \
             np.all(np.sign(steps) == np.sign(steps[0])):
         return "white"
-    # over-exposure clips the red and green channels first (illuminant A is reddish) and a clipped
-    # channel's onset is biased low, which can break the order; an unclipped blue edge still
-    # below both clipped ones is a fringe (in monochromatic light the unclipped blue edge would
-    # lie above the low-biased clipped ones)
+    if len(names) == 3 and spread > FRINGE_MIN and np.all(steps < 0) and \
+            any(-d > 4 * math.hypot(a, b) for d, a, b in zip(steps, u[:-1], u[1:], strict=True)):
+        return "white"
     blue = firsts.get("blue")
     others = [firsts[c] for c in ("red", "green") if c in firsts]
     if blue is not None and len(others) == 2 and not blue.figures.get("channel_clipped") and \
             all(f.figures.get("channel_clipped") for f in others):
-        ub = float(blue.figures.get("stat_uncertainty") or blue.uncertainty)
-        gap = min(f.value for f in others) - blue.value
-        uo = max(float(f.figures.get("stat_uncertainty") or f.uncertainty) for f in others)
-        if gap > max(FRINGE_MIN, 4 * math.hypot(ub, uo)):
+        gaps = [f.value - blue.value for f in others]
+        if max(gaps) > FRINGE_MIN and all(g > 2 * math.hypot(_stat(blue), _stat(f)) for g, f in
+                                          zip(gaps, others, strict=True)):
             return "white"
     return "unknown"
+
+
+def _stat(e) -> float:
+    """Statistical standard uncertainty of an edge fit."""
+    return float(e.figures.get("stat_uncertainty") or e.uncertainty)
 
 
 def _channel_parts(e, overexposed=False):
