@@ -164,6 +164,29 @@ def test_field_frame_fallback_needs_three_and_is_fitted():
         cal_two.field_to_ri(0.1, 0.01)
 
 
+def test_one_reference_with_a_stray_field_position_is_left_out_of_the_field_map():
+    # a reference photo whose field stop was mostly hidden (a crescent) reads its graduations
+    # well but places its edge 0.12 field radii (about 0.035 RI) off; the field-frame map leaves
+    # it out, names it, and still predicts the others; the scale map keeps it
+    pairs = simulate(REFERENCE_SET, offset=0.003, gain=0.008, noise=0.0002, seed=6)
+    rng = np.random.default_rng(7)
+    # the others' field positions scatter by 0.01 field radii (about 0.003 RI), as the tilt does
+    pairs = [dataclasses.replace(p, field_position=p.field_position + rng.normal(0, 0.01)) for p in pairs]
+    stray = 4
+    pairs[stray] = dataclasses.replace(pairs[stray], field_position=pairs[stray].field_position + 0.12)
+    fit = fit_calibration(pairs)
+    assert fit.field_map is not None
+    assert f"{pairs[stray].label} (missed by" in fit.field_reason
+    assert any("left out of the field-frame map" in w for w in fit.warnings)
+    # its own field residual shows how far it sits; the map's left-out RMS is the others'
+    assert abs(fit.references[stray].field_residual) > 0.02
+    assert fit.field_loo_rms < 0.01
+    assert not fit.references[stray].excluded  # still in the scale map
+    for i, p in enumerate(pairs):
+        if i != stray:
+            assert abs(float(fit.field_map.value(p.field_position)) - p.known_ri) < 0.01
+
+
 def test_inconsistent_field_positions_give_no_field_frame_map():
     pairs = simulate(REFERENCE_SET, offset=0.003, gain=0.008, noise=0.0002, seed=6)
     rng = np.random.default_rng(6)

@@ -49,6 +49,12 @@ FIELD_MIN_REFS = 3
 #: a field-frame map that predicts left-out references worse than this (RI) is not kept:
 #: the field positions are too inconsistent to be worth a fallback
 FIELD_MAX_LOO = 0.01
+#: references the field-frame map may leave out, worst left-out prediction first, to get under
+#: FIELD_MAX_LOO: a reference photo whose field stop was mostly hidden (a crescent) gives a field
+#: position off by several hundredths of a radius while its graduation reading is fine.  Only
+#: with at least FIELD_MIN_KEPT references left, so the rest still check each other.
+FIELD_MAX_LEFT_OUT = 2
+FIELD_MIN_KEPT = 6
 #: the known RIs must span at least this much (RI units), else "all at one end"
 MIN_SPAN = 0.08
 #: a reference is suspect when it sits this many sigmas AND this far (RI) from
@@ -433,11 +439,8 @@ class CalibrationFit:
         return self.scale_map.centre_gain_error
 
 
-def _fit_field(pairs, step) -> tuple[PolynomialMap | None, str, np.ndarray | None]:
-    usable = [p for p in pairs if p.field_position is not None and math.isfinite(p.field_position)]
-    if len(usable) < FIELD_MIN_REFS:
-        return None, (f"no field-frame fallback: it needs {FIELD_MIN_REFS} references with a field "
-                      f"position, {len(usable)} given"), None
+def _fit_field_on(usable, step):
+    """Field map of the best degree (Akaike) on ``usable`` pairs: (map, reason, left-out residuals or None)."""
     f = np.array([p.field_position for p in usable])
     y = np.array([p.known_ri for p in usable])
     s = _sigmas(usable, step)
@@ -460,11 +463,40 @@ def _fit_field(pairs, step) -> tuple[PolynomialMap | None, str, np.ndarray | Non
             m = fit_polynomial(f[keep], y[keep], s[keep], best + 1, additive=False, kind="",
                                centre=centre, half_span=half)
             loo[i] = float(m.value(f[i])) - y[i]
-        loo_rms = float(np.sqrt(np.mean(loo**2)))
-        if loo_rms > FIELD_MAX_LOO:
-            return None, (f"no field-frame fallback: the references' field positions are inconsistent "
-                          f"(left-out RMS {loo_rms:.4f} RI with {fits[best].kind})"), None
     return fits[best], reason, loo
+
+
+def _fit_field(pairs, step) -> tuple[PolynomialMap | None, str, np.ndarray | None, tuple]:
+    """The field-frame map: (map or None, reason, left-out residuals, pairs it was fitted on).
+
+    When the references' left-out predictions scatter more than :data:`FIELD_MAX_LOO`, the
+    worst-predicted reference is left out of this map (not of the scale map) and the map fitted
+    again, up to :data:`FIELD_MAX_LEFT_OUT` times while :data:`FIELD_MIN_KEPT` remain; the
+    reason names each one left out and by how much it missed.
+    """
+    usable = [p for p in pairs if p.field_position is not None and math.isfinite(p.field_position)]
+    if len(usable) < FIELD_MIN_REFS:
+        return None, (f"no field-frame fallback: it needs {FIELD_MIN_REFS} references with a field "
+                      f"position, {len(usable)} given"), None, ()
+    left_out = []
+    while True:
+        fit, reason, loo = _fit_field_on(usable, step)
+        if loo is None:
+            break
+        loo_rms = float(np.sqrt(np.mean(loo**2)))
+        if loo_rms <= FIELD_MAX_LOO:
+            break
+        if len(left_out) >= FIELD_MAX_LEFT_OUT or len(usable) - 1 < FIELD_MIN_KEPT:
+            return None, (f"no field-frame fallback: the references' field positions are inconsistent "
+                          f"(left-out RMS {loo_rms:.4f} RI with {fit.kind}"
+                          + (f", {len(left_out)} left out" if left_out else "") + ")"), None, ()
+        worst = int(np.argmax(np.abs(loo)))
+        left_out.append((usable[worst].label or f"reference at {usable[worst].known_ri:.4f}", float(loo[worst])))
+        usable = usable[:worst] + usable[worst + 1:]
+    if left_out:
+        reason += "; left out of the field-frame map (field position inconsistent with the others): " + ", ".join(
+            f"{label} (missed by {miss:+.4f} RI)" for label, miss in left_out)
+    return fit, reason, loo, tuple(usable)
 
 
 def fit_calibration(pairs, *, first: float = 1.30, step: float = 0.01, model: str | None = None,
@@ -539,9 +571,8 @@ def fit_calibration(pairs, *, first: float = 1.30, step: float = 0.01, model: st
         warnings.append(f"references scatter {scale_map.birge_ratio:.1f} times more than their stated "
                         "uncertainties: the uncertainties were enlarged to match")
     loo = _loo(used, kind, first, step)
-    field_map, field_reason, field_loo = _fit_field(used, step)
-
-    field_used = [p for p in used if p.field_position is not None and math.isfinite(p.field_position)]
+    field_map, field_reason, field_loo, field_used = _fit_field(used, step)
+    in_field_map = {id(p) for p in field_used}
     results = []
     k_used = 0
     for i, p in enumerate(every):
@@ -563,13 +594,14 @@ def fit_calibration(pairs, *, first: float = 1.30, step: float = 0.01, model: st
             field_residual=fres, excluded=not is_used))
     used_res = np.array([r.residual for r in results if not r.excluded])
     loo_res = [r.loo_residual for r in results if not r.excluded and r.loo_residual is not None]
-    field_res = [r.field_residual for r in results if not r.excluded and r.field_residual is not None]
+    field_res = [r.field_residual for r, p in zip(results, every, strict=True)
+                 if id(p) in in_field_map and r.field_residual is not None]
     lo, hi = float(known.min()) - VALID_MARGIN, float(known.max()) + VALID_MARGIN
     fvr = None
     if field_map is not None:
         fp = np.array([p.field_position for p in field_used])
         fvr = (float(fp.min()), float(fp.max()))
-    if field_map is None:
+    if field_map is None or "left out of the field-frame map" in field_reason:
         warnings.append(field_reason)
     for i in sorted(excluded):
         warnings.append(f"excluded by the user: {every[i].label} (known {every[i].known_ri:.4f})")
