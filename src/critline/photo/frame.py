@@ -106,8 +106,8 @@ class FieldFrame:
         """Standard uncertainty (stop radii) of :meth:`field_position` value(s) ``position``.
 
         Two parts in quadrature: the refined stop's own fit (its centre along the axis and its
-        radius, from :attr:`stop_cov`; 0 when the stop was not refined -- the caller then allows
-        for the coarse circle) and the phone's tilt, ``perspective * (1 - u**2)``: to first order
+        radius, from :attr:`stop_cov`; 0 when the stop was not refined, which the field-frame
+        fallback does not read on) and the phone's tilt, ``perspective * (1 - u**2)``: to first order
         a tilt moves a line at ``u`` by ``delta (1 - u**2)`` relative to the stop's outline,
         ``delta`` the shift of the projected stop's centre (see :func:`perspective_sigma`).
         """
