@@ -787,6 +787,12 @@ def _edge(t: _Term, kind: str) -> EdgeFit:
 
 # ------------------------------------------------------------------ kind of light
 
+#: Linear level (full scale 1) from which a channel's bright field is taken as clipped: the sRGB
+#: codes 251-255 of 255 decode to 0.965 and above.  Over-exposure clips the channels one by one
+#: (in sodium light red first) and leaves a clipped channel's onset low, a false coloured fringe.
+CHANNEL_FULL_SCALE = 0.96
+#: Rec. 709 luma weights of linear red, green, blue (ITU-R BT.709), as the reader's profile uses.
+LUMA_WEIGHTS = np.array([0.2126, 0.7152, 0.0722])
 #: Channel order of ``rgb``; wavelength falls from red to blue.
 CHANNELS = ("red", "green", "blue")
 #: Smallest channel displacement taken as a coloured fringe (scale units).  The
@@ -802,6 +808,8 @@ def _channel_onsets(p: _Profile, rgb, window: tuple[float, float], sigma, prism_
         y = np.asarray(channel, float)[p.index]
         if not np.all(np.isfinite(y)):
             continue
+        if np.percentile(y, 99.8) >= CHANNEL_FULL_SCALE:
+            continue  # clipped by the sensor or the encoder: its onset sits low, it cannot tell
         scale = float(np.percentile(np.abs(y), 99)) or 1.0
         y = y / scale
         noise = max(_robust_sigma(np.diff(y)) / math.sqrt(2.0), 1e-5)
@@ -854,6 +862,64 @@ def _light(channels: dict):
     if all(abs(d) < max(3 * u, FRINGE_MIN) for d, u in shifts):
         return "monochromatic", figures
     return "unknown", figures
+
+
+def _channel_clipping(edges, values, rgb):
+    """Stone edges whose bright side is clipped in a colour channel, given the clipped corner's allowance.
+
+    The luminance mixes the channels after the phone's white balance, so a channel clipped at
+    the sensor leaves no flat top in it that :func:`_prepare` could see, yet the luminance's
+    rise is cut short there and its onset sits low (over-exposed sodium photos with red and
+    green clipped read low by 0.002-0.003 on tuning seeds).  Such an edge gets
+    :data:`CLIPPED_CORNER` as its hidden stretch, as a clipped corner in the luminance does.
+    Returns the edges and whether any was clipped.
+    """
+    rgb = np.asarray(rgb, dtype=float)
+    values = np.asarray(values, dtype=float)
+    if rgb.ndim != 2 or rgb.shape[0] != 3 or rgb.shape[1] != values.size:
+        return edges, False
+    out, found = [], False
+    for e in edges:
+        # the corner itself: the stretch just above the onset, at full scale in a channel
+        reach = max(2 * e.width, 0.004)
+        above = (values > e.value) & (values <= e.value + reach)
+        if e.kind != "stone" or np.count_nonzero(above) < 3:
+            out.append(e)
+            continue
+        levels = np.array([np.nanmedian(ch[above]) for ch in rgb])
+        share = LUMA_WEIGHTS * np.nan_to_num(levels)
+        # a clipped channel that carries little of the luminance (red in sodium light, mostly)
+        # hardly moves its onset; one that carries half of it or more does
+        if share[levels >= CHANNEL_FULL_SCALE].sum() < 0.5 * max(share.sum(), 1e-12):
+            out.append(e)
+            continue
+        found = True
+        hidden = max(float(e.figures.get("hidden_by_clipping") or 0.0), CLIPPED_CORNER)
+        floor = math.hypot(float(e.figures.get("floor") or 0.0), FLOOR_CLIPPED_FRACTION * hidden)
+        stat = float(e.figures.get("stat_uncertainty") or e.uncertainty)
+        figures = dict(e.figures, hidden_by_clipping=hidden, floor=floor, channel_clipped=True)
+        out.append(EdgeFit(value=e.value, uncertainty=max(e.uncertainty, math.hypot(stat, floor)), kind=e.kind,
+                           contrast=e.contrast, width=e.width, figures=_finite_figures(figures)))
+    return out, found
+
+
+def _fringe_verdict(same_edge: dict) -> str:
+    """:func:`critline.photo.whitelight.fringe_light` on the channels that can tell.
+
+    A clipped channel's onset sits low, so clipped channels ordered below unclipped ones look
+    like a fringe in monochromatic light: the order is judged on two or more unclipped
+    channels; with fewer, only an unclipped blue edge below both clipped ones (the opposite
+    of what clipping does) is taken as a fringe.
+    """
+    from critline.photo import whitelight
+
+    unclipped = {c: v for c, v in same_edge.items() if not v[0].figures.get("channel_clipped")}
+    if len(unclipped) >= 2:
+        return whitelight.fringe_light(unclipped)
+    clipped = [v[0].value for c, v in same_edge.items() if c not in unclipped]
+    if "blue" in unclipped and len(clipped) == 2 and unclipped["blue"][0].value < min(clipped):
+        return whitelight.fringe_light(same_edge)
+    return "unknown"
 
 
 def white_light_value(edge: EdgeFit, channels: dict) -> EdgeFit:
@@ -952,6 +1018,10 @@ def analyse_profile(values, brightness, noise, *, liquid_ri=None, prism_index=1.
         flags.add("blurred")
     if any(e.contrast < LOW_CONTRAST for e in stones):
         flags.add("low_contrast")
+    if rgb is not None and edges:
+        edges, channel_clipped = _channel_clipping(edges, values, rgb)
+        if channel_clipped:
+            flags.add("channel_clipped")
     light = "unknown"
     figures = {"samples": int(p.values.size), "candidates": len(cands),
                "outliers_masked": p.outliers, "clipped_samples": int(np.count_nonzero(p.clipped)),
@@ -976,7 +1046,13 @@ def analyse_profile(values, brightness, noise, *, liquid_ri=None, prism_index=1.
             if light in ("white", "unknown") or shift > whitelight.FRINGE_MIN:
                 # the white-light reading; its channel edges may show a fringe the coarse check missed
                 per_channel = whitelight.channel_edges(values, rgb, liquid_ri=liquid_ri, prism_index=prism_index)
-                light = "white" if "white" in (light, whitelight.fringe_light(per_channel)) else light
+                # the fringe is judged on the same edge in every channel: a channel that shows
+                # only another edge (a faint blue channel in sodium light seeing just the upper
+                # edge of a pair) says nothing about this one
+                reach = max(0.02, 10 * main.width)
+                same_edge = {c: [min(v, key=lambda e: abs(e.value - main.value))] for c, v in per_channel.items()
+                             if v and min(abs(e.value - main.value) for e in v) <= reach}
+                light = "white" if "white" in (light, _fringe_verdict(same_edge)) else light
             if light == "white":
                 flags.add("white_light")
                 edges = whitelight.reread_edges(edges, values, rgb, liquid_ri=liquid_ri,

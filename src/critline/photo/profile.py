@@ -121,15 +121,20 @@ def _edge_tilt(lum: np.ndarray, cols: np.ndarray, ok: np.ndarray, period: float,
         return 0.0, 0.0
     tmpl = d_ref[lo:hi]
     tmpl = tmpl - tmpl.mean()
-    blocks = np.array_split(np.arange(len(cols)), 10)
+    # blocks among the columns that see the whole window: near the field's rim the chord is
+    # short, and blocks cut by the stop would leave too few to measure a slope
+    seen = np.flatnonzero(ok[lo:hi].mean(axis=0) >= 0.95)
+    if seen.size >= 15:
+        blocks = np.array_split(seen, min(10, seen.size // 3))
+    else:
+        blocks = np.array_split(np.arange(len(cols)), 10)
     shifts, where = [], []
     for b in blocks:
         if len(b) < 3:
             continue
         with np.errstate(all="ignore"):
             pb = nan_median_rows(masked[:, b])
-        seg_ok = np.isfinite(pb[lo - max_shift:hi + max_shift])
-        if seg_ok.mean() < 0.95:
+        if np.isfinite(pb[lo:hi]).mean() < 0.95:
             continue
         db = _smooth_gradient(_fill(pb), sig)
         # tmpl has zero mean, so the segment's own mean does not change the correlation

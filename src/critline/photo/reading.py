@@ -35,11 +35,16 @@ from critline.readings import Edge, PhotoReading, Quality, rejected
 
 #: Field diameter (pixels) wanted in the working image; decoding is reduced while it stays above.
 WORK_DIAMETER = 560
+#: Largest field diameter (pixels) of the working image: larger fields are shrunk to it.
+WORK_DIAMETER_MAX = 800.0
 #: Short side (pixels) wanted for finding the field.
 COARSE_SHORT = 300
 #: Field diameter (pixels) below which the working image is decoded afresh at a smaller reduction
 #: instead of shrunk from the photo's one decode (see :func:`_base_reduction`).
 MIN_WORK_DIAMETER = 360
+#: Smallest field diameter (pixels) the one decode keeps for the smallest field of the envelope;
+#: such a field, below :data:`MIN_WORK_DIAMETER`, gets the second decode.
+BASE_MIN_DIAMETER = 280
 
 #: Systematic geometry term (graduation units) added in quadrature: perspective and resampling
 #: effects the fitted figures do not see (sized on the tuning seeds, below 10000).
@@ -51,7 +56,7 @@ LOW_CONTRAST = 0.1
 
 #: Flags that mean the reading is degraded (the bench counts these); the others are informative.
 DEGRADING = ("blurred", "low_contrast", "graduations_partly_found", "white_light", "low_resolution",
-             "identification_weak", "clipped_highlights", "map_extrapolated")
+             "identification_weak", "clipped_highlights", "map_extrapolated", "channel_clipped")
 #: Flags of the 1-D edge analysis replaced by the reader's own definition.
 _OWN_FLAGS = ("blurred",)
 
@@ -69,10 +74,10 @@ def _base_reduction(width: int, height: int) -> int:
     Decoding a JPEG costs about the same at any reduction (entropy decoding is
     most of it), so a photo is decoded once, as small as keeps the smallest
     field the envelope allows (25 % of the short side) at
-    :data:`MIN_WORK_DIAMETER` pixels, and the coarse and working images are
+    :data:`BASE_MIN_DIAMETER` pixels, and the coarse and working images are
     shrunk from it.
     """
-    return _reduce_for(0.25 * min(width, height), MIN_WORK_DIAMETER)
+    return _reduce_for(0.25 * min(width, height), BASE_MIN_DIAMETER)
 
 
 def _best_column(dark, dark_abs, frame, inst: Instrument):
@@ -104,11 +109,15 @@ def _coarse_grey(photo: LoadedPhoto, base: np.ndarray, rb: int) -> tuple[np.ndar
 def _working_rgb(photo: LoadedPhoto, circle, base: np.ndarray, rb: int) -> tuple[np.ndarray, int]:
     """Working image (stored integers) with the field at least :data:`WORK_DIAMETER` across where
     the photo allows, and its reduction."""
-    rw = _reduce_for(2 * circle.r, WORK_DIAMETER)
-    if rw >= rb:
-        return _shrink(base, rw // rb), rw
-    if 2 * circle.r / rb >= MIN_WORK_DIAMETER:
+    across = 2 * circle.r / rb  # field diameter in the decoded image
+    if across > WORK_DIAMETER_MAX:
+        # area averaging by a fractional factor: cv2.resize given fx keeps that exact scale, so
+        # pixel centres map back as for an integer reduction (x_full = (x + 0.5) * rw - 0.5)
+        f = across / WORK_DIAMETER_MAX
+        return cv2.resize(base, None, fx=1.0 / f, fy=1.0 / f, interpolation=cv2.INTER_AREA), rb * f
+    if across >= MIN_WORK_DIAMETER or rb == 1:
         return base, rb
+    rw = _reduce_for(2 * circle.r, WORK_DIAMETER)
     return decode(photo, rw, raw=True), rw  # a small field: worth a second, larger decode
 
 
