@@ -22,7 +22,9 @@ from critline.report.table import guard_cell
     ("\t=1", "'\t=1"),
     ("\r=1", "'\r=1"),
     ("\t5", "'\t5"),          # padded: not a plain number
-    ("-", "'-"),              # the optic sign is text too
+    ("-", "-"),               # the optic sign: a lone operator runs nothing
+    ("+", "+"),
+    ("-x", "'-x"),
     ("-0.0030", "-0.0030"),   # numbers unchanged
     ("-30", "-30"),
     ("+1.5", "+1.5"),

@@ -7,7 +7,8 @@ Text that a spreadsheet would take for a formula (a cell starting with ``=``,
 ``+``, ``-``, ``@``, a tab or a carriage return; file and stone names come
 from the user's disk) gets a leading apostrophe, as the OWASP "CSV Injection"
 guidance recommends; a cell that is a number (``-0.0030``, a rotation of
-``-30``) is left as it is.  The optic sign therefore reads ``'+`` / ``'-``.
+``-30``) is left as it is, and so is a lone sign character (the optic sign
+``+`` / ``-``): an operator with nothing after it calls nothing.
 """
 
 from __future__ import annotations
@@ -29,6 +30,8 @@ COLUMNS = (
 
 #: first characters that make a spreadsheet read a cell as a formula (OWASP, "CSV Injection")
 FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+#: cells left as they are although they start with a formula character: the optic sign
+LONE_SIGNS = ("+", "-")
 
 
 def _is_number(text: str) -> bool:
@@ -44,7 +47,7 @@ def _is_number(text: str) -> bool:
 def guard_cell(text: str) -> str:
     """``text`` with a leading apostrophe when a spreadsheet would read it as a formula;
     numbers (a negative one too) unchanged."""
-    if text.startswith(FORMULA_START) and not _is_number(text):
+    if text.startswith(FORMULA_START) and not _is_number(text) and text not in LONE_SIGNS:
         return "'" + text
     return text
 
