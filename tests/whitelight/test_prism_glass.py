@@ -104,3 +104,33 @@ def test_estimate_uses_the_named_glass():
     assert abs(default.value - truth) < 0.0005
     assert default.figures["cauchy_b_nm2"] < 0 < named.figures["cauchy_b_nm2"]
     assert default.chi2 > 10 * named.chi2
+
+
+# ------------------------------------------------------------------ the reader passes it on
+
+
+def test_reader_reads_white_light_with_the_instrument_glass():
+    """The instrument's ``prism_glass`` reaches the white-light reading.
+
+    An invented white-light sample read with the glass the synthesizer used (SCHOTT N-LASF31A,
+    the default, named explicitly) gives exactly the default reading; read as if the prism were
+    OHARA S-NPH5 (Abbe number about 19 against 41, from the glass table's catalogue formulas)
+    the channel indices are converted with another dispersion and the 589.3 nm value moves.
+    """
+    from dataclasses import replace
+    from pathlib import Path
+
+    from critline.photo import read_photo
+
+    folder = Path(__file__).resolve().parents[2] / "samples"
+    inst = load_instrument(folder / "instrument.toml")
+    photo = folder / "white-light" / "wl-hl04-spinel.jpg"
+    default = read_photo(photo, instrument=inst)
+    assert default.light == "white"
+    named = read_photo(photo, instrument=replace(inst, prism_glass="N-LASF31A"))
+    other = read_photo(photo, instrument=replace(inst, prism_glass="S-NPH5"))
+    stone = [e.ri for e in default.edges if e.kind == "stone"]
+    assert [e.ri for e in named.edges if e.kind == "stone"] == stone
+    moved = [e.ri for e in other.edges if e.kind == "stone"]
+    assert len(moved) == len(stone)
+    assert max(abs(a - b) for a, b in zip(moved, stone, strict=True)) > 2e-4

@@ -943,7 +943,7 @@ def white_light_value(edge: EdgeFit, channels: dict) -> EdgeFit:
 # ----------------------------------------------------------------------- public
 
 
-def analyse_profile(values, brightness, noise, *, liquid_ri=None, prism_index=1.88, rgb=None):
+def analyse_profile(values, brightness, noise, *, liquid_ri=None, prism_index=1.88, rgb=None, glass=None):
     """Find the shadow edges of a brightness profile along the scale.
 
     Parameters
@@ -963,6 +963,9 @@ def analyse_profile(values, brightness, noise, *, liquid_ri=None, prism_index=1.
     rgb : array_like, optional
         ``(3, len(values))`` linear red, green, blue profiles, for telling white
         light from monochromatic light.
+    glass : object with ``index(wavelength_nm)``, optional
+        The prism glass's dispersion formula for the white-light reading
+        (:func:`critline.photo.whitelight.prism_glass`); the default glass if None.
 
     Returns
     -------
@@ -1056,7 +1059,7 @@ def analyse_profile(values, brightness, noise, *, liquid_ri=None, prism_index=1.
             if light == "white":
                 flags.add("white_light")
                 edges = whitelight.reread_edges(edges, values, rgb, liquid_ri=liquid_ri,
-                                                prism_index=prism_index, per_channel=per_channel)
+                                                prism_index=prism_index, per_channel=per_channel, glass=glass)
     edges = sorted(edges, key=lambda e: e.value)
     return ProfileAnalysis(tuple(edges), status, light, tuple(sorted(flags)),
                            _finite_figures(figures))

@@ -29,7 +29,7 @@ from critline.photo.graduations import (
 )
 from critline.photo.load import LoadedPhoto, PhotoRejected, decode, load_photo, to_float
 from critline.photo.profile import Profile, brightness_profile
-from critline.photo.whitelight import calibration_light_refusal
+from critline.photo.whitelight import calibration_light_refusal, prism_glass
 from critline.photo.whitelight import reading_summary as white_light_summary
 from critline.readings import Edge, PhotoReading, Quality, rejected
 
@@ -129,9 +129,10 @@ def _shrink(arr: np.ndarray, factor: int) -> np.ndarray:
     return cv2.resize(arr[:h, :w], (w // factor, h // factor), interpolation=cv2.INTER_AREA)
 
 
-def _analyse(values, brightness, noise, liquid_ri, rgb, prism_index=1.88):
+def _analyse(values, brightness, noise, liquid_ri, rgb, prism_index=1.88, glass=None):
     """Stage 5: the edges helper's 1-D analysis of the profile (critline.photo.edges)."""
-    return analyse_profile(values, brightness, noise, liquid_ri=liquid_ri, prism_index=prism_index, rgb=rgb)
+    return analyse_profile(values, brightness, noise, liquid_ri=liquid_ri, prism_index=prism_index, rgb=rgb,
+                           glass=glass)
 
 
 @dataclass(frozen=True)
@@ -400,8 +401,10 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
         raise PhotoRejected("brightness profile too short")
     idx, bright, noise, rgb_p = idx[ok], prof.brightness[ok], prof.noise[ok], prof.rgb[:, ok]
     values = inst.first + inst.step * idx
+    # the instrument's prism glass (its dispersion formula) for a white-light reading
+    glass = prism_glass(inst) if getattr(inst, "prism_glass", None) else None
     try:
-        analysis = _analyse(values, bright, noise, inst.liquid_ri, rgb_p)
+        analysis = _analyse(values, bright, noise, inst.liquid_ri, rgb_p, glass=glass)
     except (ValueError, FloatingPointError, np.linalg.LinAlgError, RuntimeError):
         # once more on a window ending one graduation above the scale (the fit is more
         # fragile far beyond it)
@@ -410,7 +413,7 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
         ok = ok.copy()
         ok[np.flatnonzero(ok)[~keep]] = False
         try:
-            analysis = _analyse(values, bright, noise, inst.liquid_ri, rgb_p)
+            analysis = _analyse(values, bright, noise, inst.liquid_ri, rgb_p, glass=glass)
         except (ValueError, FloatingPointError, np.linalg.LinAlgError, RuntimeError) as exc:
             raise PhotoRejected(f"edge analysis failed ({type(exc).__name__}: {exc})") from None
     evidence["profile"] = (values, bright)

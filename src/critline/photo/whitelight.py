@@ -36,9 +36,8 @@ Method
    default is the SCHOTT N-LASF31A formula of the glass table
    (``critline/synth/data/glasses.csv``, ``N_D`` = 1.8828, Abbe number 40.8).
    Only the ratio ``N(lambda) / N_D`` is used, so a prism of slightly
-   different index but similar dispersion reads the same.  (The reader does
-   not yet pass the instrument's glass down to :func:`reread_edges`; until it
-   does, photos are read with the default.)
+   different index but similar dispersion reads the same.  The reader passes
+   the instrument's glass down to :func:`reread_edges`.
 3. A two-term Cauchy formula ``n(lambda) = n_D + B (1/lambda^2 - 1/589.3^2)``
    is fitted to the channel indices by weighted least squares; ``n_D`` is the
    reading.  With three channels one degree of freedom is left: a poor fit
