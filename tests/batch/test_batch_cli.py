@@ -124,9 +124,12 @@ def test_ctrl_c_keeps_what_was_read(tmp_path, fake_core):
     script = tmp_path / "slow_batch.py"
     script.write_text(SLOW_BATCH)
     env = dict(__import__("os").environ, PYTHONPATH=str(Path(__file__).parent))
+    # a suite started in the background by a non-interactive shell inherits SIGINT ignored, and
+    # Python then installs no KeyboardInterrupt handler: give the child the default disposition
     proc = subprocess.Popen([sys.executable, str(script), "batch", str(tmp_path / "p"), "--out",
                              str(tmp_path / "o"), "--workers", "2"], env=env,
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                            preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
     cache = tmp_path / "o" / "cache"
     deadline = time.monotonic() + 60
     while time.monotonic() < deadline and len(list(cache.glob("*.json"))) < 2:
