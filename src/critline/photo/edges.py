@@ -864,6 +864,41 @@ def _light(channels: dict):
     return "unknown", figures
 
 
+#: Largest RMS residual (in units of the channel's own sample noise) of a channel fitted as a
+#: multiple of the luminance across an edge's window, for the channels to count as moving together.
+PROPORTIONAL_RESIDUAL = 1.3
+
+
+def _channels_proportional(p: _Profile, rgb, window) -> bool:
+    """True when every colour channel is, within its noise, a constant multiple of the luminance
+    across ``window`` (plus an offset for stray light).
+
+    In monochromatic light the channels see one spectrum, so they are proportional; a coloured
+    fringe displaces the channel edges and leaves a residual of about slope x displacement.  A
+    clipped channel is not proportional and fails the test.  The noise of each channel comes
+    from its sample-to-sample differences (robust); correlated noise makes the test fail, never
+    pass, so the full channel fits decide then.
+    """
+    lo, hi = window
+    sel = (p.values >= lo) & (p.values <= hi) & (p.weight > 0)
+    if np.count_nonzero(sel) < 20:
+        return False
+    chans = np.asarray(rgb, float)[:, p.index[sel]]
+    if not np.all(np.isfinite(chans)):
+        return False
+    lum = LUMA_WEIGHTS @ chans
+    basis = np.stack([lum, np.ones_like(lum)], axis=1)
+    for y in chans:
+        noise = _robust_sigma(np.diff(y)) / math.sqrt(2.0)
+        if not noise > 0:
+            return False
+        coef = np.linalg.lstsq(basis, y, rcond=None)[0]
+        resid = y - basis @ coef
+        if math.sqrt(float(np.mean(resid ** 2))) > PROPORTIONAL_RESIDUAL * noise:
+            return False
+    return True
+
+
 def _channel_clipping(edges, values, rgb):
     """Stone edges whose bright side is clipped in a colour channel, given the clipped corner's allowance.
 
@@ -1038,8 +1073,12 @@ def analyse_profile(values, brightness, noise, *, liquid_ri=None, prism_index=1.
             # are compared (a coloured fringe spans up to about 0.02)
             window = (max(lo, main.value - max(0.02, 10 * main.width)),
                       min(hi, main.value + max(0.012, 6 * main.width)))
-            channels = _channel_onsets(p, rgb, window, main.width, prism_index)
-            light, light_figures = _light(channels)
+            if _channels_proportional(p, rgb, window):
+                # the channels move together across the edge: no fringe, and no channel fits
+                channels, light, light_figures = {}, "monochromatic", {"channels_proportional": True}
+            else:
+                channels = _channel_onsets(p, rgb, window, main.width, prism_index)
+                light, light_figures = _light(channels)
             figures.update(light_figures)
             figures["channel_onsets"] = {k: t.value for k, t in channels.items()}
             per_channel = None
