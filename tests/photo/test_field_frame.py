@@ -217,3 +217,24 @@ def test_fallback_only_without_graduations_and_marked(tmp_path):
         else:
             assert "lower_precision" not in flags and "field_frame" not in flags
             assert abs(stone[0].field_position - _edge_u(truth, n)) < 0.005
+
+
+def test_fallback_rejected_when_little_of_the_stop_is_seen(tmp_path, monkeypatch):
+    # a crescent (the phone off the eyepiece's axis) and the shadow's dark half can leave a short
+    # arc of the stop's rim: then the reader must not place the edge on it.  The frame is the
+    # reader's own, with the seen fraction of the rim set below MIN_STOP_SEEN.
+    import dataclasses
+
+    import critline.photo.reading as reading
+
+    n = 1.62
+    img, truth = draw_eyepiece(size=(720, 960), angle_deg=30.0, edges=(n,), seed=4, ink=0.0)
+    p = tmp_path / "no-graduations.png"
+    Image.fromarray(img).save(p)
+    seen = read_photo(p, calibration=_Calibration(truth))
+    assert seen.mode == "field_frame" and seen.status == "ok"
+    make = reading.make_frame
+    monkeypatch.setattr(reading, "make_frame", lambda *a, **k: dataclasses.replace(
+        make(*a, **k), stop_seen=0.5 * reading.MIN_STOP_SEEN))
+    short = read_photo(p, calibration=_Calibration(truth))
+    assert short.status == "rejected" and "outline seen on only" in short.reason, short.reason

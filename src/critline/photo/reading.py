@@ -509,14 +509,18 @@ def _thin(profile, max_points=400):
     return tuple(xs[i] for i in sel), tuple(ys[i] for i in sel)
 
 
-#: Standard uncertainty (field radii) of a field position measured on the refined field stop:
-#: chiefly the phone's perspective tilt, which moves the projected stop's centre off the image
-#: of the eyepiece's centre by up to tan(tilt) x tan(field half-angle) along the tilt, a shift
-#: the stop's outline cannot sign; plus the outline fit.  Sized on tuning seeds (20000-20999:
-#: |error| median 0.012, 95th percentile 0.036 field radii).
-FIELD_POSITION_SIGMA = 0.018
-#: The same when the stop could not be refined (coarse circle only: a few coarse pixels).
-FIELD_POSITION_SIGMA_COARSE = 0.04
+#: Standard uncertainty (field radii) of a field position measured on the refined field stop,
+#: besides the parts the frame states (:meth:`FieldFrame.position_sigma`: the stop's fit and the
+#: phone's tilt): the edge's row, and the outline's biases the fit's scatter does not show (a
+#: circle fitted to part of a tilted stop's elliptical outline, a crescent's ramp beside it).
+#: Sized on tuning seeds (setups 20000-20069, photos 200500-200569, true field map: 47 of the
+#: 48 field-frame readings within 2 sigma; field-position error p95 0.037 radii, chiefly the tilt).
+FIELD_POSITION_SIGMA = 0.010
+#: Smallest fraction of the field stop's circumference whose edge must be seen for a field-frame
+#: reading.  A crescent (the phone off the eyepiece's axis) or the shadow's dark half can hide
+#: the rest; a circle through a short arc, or the coarse circle alone, was off by 0.05 to 0.6
+#: field radii on tuning seeds, beyond what its uncertainty says.
+MIN_STOP_SEEN = 1 / 6
 
 
 def _no_graduations(photo, name, reason, figures, flags, calibration, frame, circle, inst):
@@ -524,10 +528,16 @@ def _no_graduations(photo, name, reason, figures, flags, calibration, frame, cir
     (edge position relative to the field circle -> RI), else rejected with the reason.
 
     The reading says so: ``mode`` is ``field_frame`` and its flags carry ``field_frame`` and
-    ``lower_precision``; each edge's uncertainty includes :data:`FIELD_POSITION_SIGMA`.
+    ``lower_precision``; each edge's uncertainty includes the field position's own: the stop's fit
+    and the phone's unknown tilt (:meth:`FieldFrame.position_sigma`) and :data:`FIELD_POSITION_SIGMA`.
+    Rejected when too little of the field stop's outline is seen to place the edge on it
+    (:data:`MIN_STOP_SEEN`).
     """
     if calibration is None or getattr(calibration, "field_map", None) is None:
         return rejected(name, photo.sha256, reason)
+    if frame.stop is None or frame.stop_seen < MIN_STOP_SEEN:
+        return rejected(name, photo.sha256, reason + f"; field stop's outline seen on only {frame.stop_seen:.0%} "
+                        "of its circumference, too little for a field-frame reading")
     # no graduation column known: the profile over the central columns (the median ignores the
     # graduations and labels, which are thin)
     prof = brightness_profile(frame, frame.half, frame.half - 1, 0, max(2.0, frame.radius / 40))
@@ -558,15 +568,13 @@ def _no_graduations(photo, name, reason, figures, flags, calibration, frame, cir
     for e in analysis.edges:
         f = float(np.interp(e.value, ri_axis, fpos))
         f_fit = float(e.uncertainty / max(np.interp(f, fpos, slope), 1e-9))
-        f_unc = math.hypot(f_fit, FIELD_POSITION_SIGMA if frame.stop is not None else FIELD_POSITION_SIGMA_COARSE)
+        f_unc = math.hypot(f_fit, float(frame.position_sigma(sign * f)), FIELD_POSITION_SIGMA)
         ri, unc, eflags = calibration.field_to_ri(f, f_unc)
         edges.append(Edge(ri=float(ri), uncertainty=float(max(unc, 1e-4)), kind=e.kind,
                           scale_position=float("nan"), scale_uncertainty=float("nan"),
                           contrast=float(np.clip(e.contrast, 0, 1)), field_position=f, flags=tuple(eflags)))
     edges.sort(key=lambda e: e.ri)
     flags = list(flags) + ["field_frame", "lower_precision"]
-    if frame.stop is None:
-        flags.append("field_stop_coarse")
     figures = dict(figures, graduations_failure=reason)
     return PhotoReading(photo=name, sha256=photo.sha256, status=analysis.status, reason=None,
                         edges=tuple(edges), light=getattr(analysis, "light", "unknown"), mode="field_frame",
