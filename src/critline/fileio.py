@@ -4,16 +4,19 @@ from __future__ import annotations
 
 import os
 import tempfile
+from collections.abc import Iterable
 from pathlib import Path
 
 from critline.errors import UsageError
 
 
-def atomic_write_bytes(path: str | Path, data: bytes, overwrite: bool = True) -> Path:
-    """Write ``data`` to ``path`` through a temporary file and a rename.
+def atomic_write_pieces(path: str | Path, pieces: Iterable[str | bytes], overwrite: bool = True) -> Path:
+    """Write ``pieces`` (bytes, or text as UTF-8) to ``path`` through a temporary file and a rename.
 
-    A reader never sees a half-written file; a crash leaves the old file (or
-    none).  With ``overwrite=False`` an existing file is an error.
+    A reader never sees a half-written file; a crash or a failing piece leaves the old file
+    (or none).  With ``overwrite=False`` an existing file is an error, and the file is linked
+    into place only if the name is still free.  Pieces let a large document be written
+    without holding it whole in memory.
     """
     path = Path(path)
     if not overwrite and path.exists():
@@ -26,7 +29,8 @@ def atomic_write_bytes(path: str | Path, data: bytes, overwrite: bool = True) ->
         os.umask(umask)
         os.fchmod(fd, 0o666 & ~umask)
         with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
+            for piece in pieces:
+                fh.write(piece.encode("utf-8") if isinstance(piece, str) else piece)
             fh.flush()
             os.fsync(fh.fileno())
         if not overwrite:
@@ -43,6 +47,11 @@ def atomic_write_bytes(path: str | Path, data: bytes, overwrite: bool = True) ->
             os.unlink(tmp)
         raise
     return path
+
+
+def atomic_write_bytes(path: str | Path, data: bytes, overwrite: bool = True) -> Path:
+    """Write ``data`` to ``path`` through a temporary file and a rename (see :func:`atomic_write_pieces`)."""
+    return atomic_write_pieces(path, (data,), overwrite=overwrite)
 
 
 def atomic_write_text(path: str | Path, text: str, overwrite: bool = True) -> Path:

@@ -15,12 +15,10 @@ not grow with the number of photos (the HTML page embeds every photo).
 from __future__ import annotations
 
 import json
-import os
-import tempfile
-from collections.abc import Iterable
 from pathlib import Path
 
 from critline.errors import UsageError
+from critline.fileio import atomic_write_pieces
 from critline.report.document import iter_batch_json
 from critline.report.html import generated_now, iter_batch_html
 from critline.report.table import iter_batch_csv
@@ -36,42 +34,6 @@ def free_stem(out_dir: Path, stem: str = "report") -> str:
         if not any((out_dir / f"{name}{s}").exists() for s in SUFFIXES):
             return name
         n += 1
-
-
-def atomic_write_pieces(path: Path, pieces: Iterable[str], overwrite: bool = True) -> Path:
-    """Write text ``pieces`` (UTF-8) to ``path`` through a temporary file and a rename.
-
-    As :func:`critline.fileio.atomic_write_bytes`, for text made piece by piece: a reader
-    never sees a half-written file, a failure leaves the old file (or none), and with
-    ``overwrite=False`` the file is linked into place only if the name is still free.
-    """
-    path = Path(path)
-    if not overwrite and path.exists():
-        raise UsageError(f"{path}: already exists (refusing to overwrite; pass the overwrite option)")
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    try:
-        umask = os.umask(0)
-        os.umask(umask)
-        os.fchmod(fd, 0o666 & ~umask)
-        with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
-            for piece in pieces:
-                fh.write(piece)
-            fh.flush()
-            os.fsync(fh.fileno())
-        if not overwrite:
-            try:
-                os.link(tmp, path)
-            except FileExistsError:
-                raise UsageError(f"{path}: already exists (refusing to overwrite)") from None
-            os.unlink(tmp)
-        else:
-            os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
-    return path
 
 
 def _json_pieces(result, document: dict | None):
