@@ -17,7 +17,7 @@ import cv2
 import numpy as np
 
 from critline.instrument import DEFAULT, Instrument
-from critline.photo.edges import analyse_profile
+from critline.photo.edges import LIQUID_DRIFT, analyse_profile
 from critline.photo.field import find_field
 from critline.photo.frame import AxisEstimate, axis_angle, make_frame
 from critline.photo.graduations import (
@@ -27,7 +27,14 @@ from critline.photo.graduations import (
     find_graduations,
     normalised,
 )
-from critline.photo.load import LoadedPhoto, PhotoRejected, decode, load_photo, to_float
+from critline.photo.load import (
+    LoadedPhoto,
+    PhotoRejected,
+    decode,
+    load_photo,
+    srgb_to_linear,
+    to_float,
+)
 from critline.photo.profile import Profile, brightness_profile
 from critline.photo.whitelight import calibration_light_refusal, prism_glass
 from critline.photo.whitelight import reading_summary as white_light_summary
@@ -107,8 +114,12 @@ def _coarse_grey(photo: LoadedPhoto, base: np.ndarray, rb: int) -> tuple[np.ndar
 
 
 def _working_rgb(photo: LoadedPhoto, circle, base: np.ndarray, rb: int) -> tuple[np.ndarray, int]:
-    """Working image (stored integers) with the field at least :data:`WORK_DIAMETER` across where
-    the photo allows, and its reduction."""
+    """Working image (stored integers) and its reduction (a float when shrunk by a fractional factor).
+
+    The field is shrunk to :data:`WORK_DIAMETER_MAX` across when larger, kept as decoded down to
+    :data:`MIN_WORK_DIAMETER`, and below that decoded again at a reduction that keeps it at least
+    :data:`WORK_DIAMETER` across where the photo allows.
+    """
     across = 2 * circle.r / rb  # field diameter in the decoded image
     if across > WORK_DIAMETER_MAX:
         # area averaging by a fractional factor: cv2.resize given fx keeps that exact scale, so
@@ -167,9 +178,6 @@ def _bright_only_beyond(frame, grads, inst: Instrument) -> dict | None:
     Returns the figures (``scale_level``, ``beyond_level``) when the field is over the
     limit by this test, else None.
     """
-    from critline.photo.edges import LIQUID_DRIFT
-    from critline.photo.load import srgb_to_linear
-
     lin = srgb_to_linear(frame.grey)
     inside = frame.inside
     counts = inside.sum(axis=1)
