@@ -730,7 +730,9 @@ def _classify(terms: list[_Term], liquid_ri):
     terms = sorted(terms, key=lambda t: t.value)
     line_parts = [t for t in terms if t.contrast < MIN_CONTRAST_STONE
                   and _in_liquid_zone(t.value, liquid_ri, LIQUID_LINE_REACH + 3 * t.uncertainty)]
-    terms = [t for t in terms if not any(t is q for q in line_parts)]
+    # the fit may leave a term far fainter than any step a candidate needed to be (a wiggle on
+    # the bright side): below the smallest accepted step it is no edge
+    terms = [t for t in terms if not any(t is q for q in line_parts) and t.contrast >= MIN_CONTRAST_STONE]
     liquid = None
     if terms:
         top = terms[-1]
@@ -747,6 +749,12 @@ def _classify(terms: list[_Term], liquid_ri):
                      or (top.contrast >= OVER_LIMIT_CONTRAST and foot)):
             liquid = top
             terms = terms[:-1] if top.contrast < FAINT_LIQUID else []
+    if liquid is not None and liquid.contrast < FAINT_LIQUID:
+        # steps beside a faint liquid line, in the liquid's zone and no stronger than twice it,
+        # are more parts of the line (its film's reflections), not a stone's edge
+        beside = [t for t in terms if t.contrast < min(FAINT_LIQUID, 2 * liquid.contrast)
+                  and _in_liquid_zone(t.value, liquid_ri, LIQUID_LINE_REACH + 3 * t.uncertainty)]
+        terms = [t for t in terms if not any(t is q for q in beside)]
     if liquid is None and line_parts:
         liquid = max(line_parts, key=lambda t: t.contrast)
     if liquid is not None and liquid_ri is None:
