@@ -77,6 +77,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from critline.optics import SODIUM_D_NM
+from critline.photo.edges import CHANNEL_FULL_SCALE
 
 #: Channel order of the profiles.
 CHANNELS = ("red", "green", "blue")
@@ -96,8 +97,9 @@ DEFAULT_GLASS = "N-LASF31A"
 #: onset (over-exposure by 1.5-2x hides 0.003-0.008, see critline.photo.edges).
 CLIPPED_HIDDEN = 0.004
 #: Linear level (of full scale 1) from which a channel's bright field is taken as clipped: the
-#: sRGB codes 250 and 251 of 255 decode to 0.956 and 0.965, so this catches 8-bit values of 251-255.
-FULL_SCALE = 0.96
+#: sRGB codes 250 and 251 of 255 decode to 0.956 and 0.965, so this catches 8-bit values of 251-255
+#: (the single-colour edge analysis uses the same level).
+FULL_SCALE = CHANNEL_FULL_SCALE
 #: Smallest spread of the channel edges taken as a coloured fringe (scale units).
 FRINGE_MIN = 0.0015
 #: A dispersion estimate is reported only below this relative uncertainty.
