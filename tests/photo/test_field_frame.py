@@ -238,3 +238,27 @@ def test_fallback_rejected_when_little_of_the_stop_is_seen(tmp_path, monkeypatch
         make(*a, **k), stop_seen=0.5 * reading.MIN_STOP_SEEN))
     short = read_photo(p, calibration=_Calibration(truth))
     assert short.status == "rejected" and "outline seen on only" in short.reason, short.reason
+
+
+def test_graduation_reading_gives_no_field_position_from_a_short_arc(tmp_path, monkeypatch):
+    # a calibration's field-frame map is fitted on the field positions of graduation-mode
+    # readings: one from a stop seen on too short an arc (0.24-0.40 radii off on tuning seeds)
+    # must not be offered, while the reading itself stands
+    import dataclasses
+
+    import critline.photo.reading as reading
+
+    n = 1.62
+    img, truth = draw_eyepiece(size=(720, 960), angle_deg=30.0, edges=(n,), seed=4, ink=0.75)
+    p = tmp_path / "graduations.png"
+    Image.fromarray(img).save(p)
+    full = read_photo(p)
+    assert full.mode == "graduations" and full.status == "ok"
+    assert all(e.field_position is not None for e in full.edges)
+    make = reading.make_frame
+    monkeypatch.setattr(reading, "make_frame", lambda *a, **k: dataclasses.replace(
+        make(*a, **k), stop_seen=0.5 * reading.MIN_STOP_SEEN))
+    short = read_photo(p)
+    assert short.mode == "graduations" and short.status == "ok"
+    assert [e.ri for e in short.edges] == [e.ri for e in full.edges]
+    assert all(e.field_position is None for e in short.edges)

@@ -398,7 +398,8 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
     n = frame.grey.shape[0]
     if decided.get("down") is False:
         prof = Profile((n - 1) - prof.rows[::-1], prof.brightness[::-1], prof.noise[::-1], prof.rgb[:, ::-1],
-                       prof.columns, prof.tilt, prof.figures)
+                       prof.columns, prof.tilt, prof.figures,
+                       None if prof.blocks is None else prof.blocks[:, ::-1])
     figures.update(grads.figures)
     figures.update(prof.figures)
     flags.extend(grads.flags)
@@ -469,7 +470,9 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
         scale_pos = (e.value - inst.first) / step_val
         scale_unc = math.sqrt((e.uncertainty / step_val) ** 2 + k_unc ** 2 + k_straight ** 2
                               + GEOMETRY_FLOOR ** 2)
-        u = float(frame.field_position(row))
+        # where the edge sits on the field stop, for a calibration's field-frame map: only from a
+        # refined stop seen well enough (a coarse circle or a short arc put it 0.24-0.40 radii off)
+        u = float(frame.field_position(row)) if _stop_placed(frame) else None
         eflags: tuple[str, ...] = ()
         if calibration is not None:
             ri, unc, eflags = calibration.scale_to_ri(scale_pos, scale_unc)
@@ -477,7 +480,7 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
             ri, unc = inst.value(scale_pos), scale_unc * step_val
         edges.append(Edge(ri=float(ri), uncertainty=float(max(unc, 1e-4)), kind=e.kind,
                           scale_position=float(scale_pos), scale_uncertainty=float(scale_unc),
-                          contrast=float(np.clip(e.contrast, 0, 1)), field_position=float(u),
+                          contrast=float(np.clip(e.contrast, 0, 1)), field_position=u,
                           flags=tuple(eflags)))
         if e.kind == "stone" and not (grads.indices.min() - 2 <= scale_pos <= grads.indices.max() + 2):
             if "map_extrapolated" not in flags:
@@ -531,6 +534,11 @@ FIELD_POSITION_SIGMA = 0.010
 MIN_STOP_SEEN = 1 / 6
 
 
+def _stop_placed(frame) -> bool:
+    """Whether the field stop is refined and seen enough to place an edge on it."""
+    return frame.stop is not None and frame.stop_seen >= MIN_STOP_SEEN
+
+
 def _no_graduations(photo, name, reason, figures, flags, calibration, frame, circle, inst):
     """Graduations failed: a field-frame reading when the calibration has a field-frame map
     (edge position relative to the field circle -> RI), else rejected with the reason.
@@ -543,7 +551,7 @@ def _no_graduations(photo, name, reason, figures, flags, calibration, frame, cir
     """
     if calibration is None or getattr(calibration, "field_map", None) is None:
         return rejected(name, photo.sha256, reason)
-    if frame.stop is None or frame.stop_seen < MIN_STOP_SEEN:
+    if not _stop_placed(frame):
         return rejected(name, photo.sha256, reason + f"; field stop's outline seen on only {frame.stop_seen:.0%} "
                         "of its circumference, too little for a field-frame reading")
     # no graduation column known: the profile over the central columns (the median ignores the
