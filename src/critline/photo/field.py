@@ -30,6 +30,8 @@ import numpy as np
 from skimage.filters import threshold_otsu
 from skimage.measure import CircleModel
 
+from critline.photo.percentile import percentile
+
 
 @dataclass(frozen=True)
 class FieldCircle:
@@ -122,14 +124,20 @@ def ransac_circle(points: np.ndarray, tol: float, r_range: tuple[float, float], 
     if not ok.any():
         return None
     cx, cy, r = cx[ok], cy[ok], r[ok]
-    best_count, best = -1, None
-    for start in range(0, len(r), 100):  # chunks keep the distance matrix small
-        sl = slice(start, start + 100)
-        d = np.abs(np.hypot(points[None, :, 0] - cx[sl, None], points[None, :, 1] - cy[sl, None]) - r[sl, None])
-        counts = (d < tol).sum(axis=1)
-        j = int(np.argmax(counts))
-        if counts[j] > best_count:
-            best_count, best = int(counts[j]), (cx[sl][j], cy[sl][j], r[sl][j])
+    # |distance - r| < tol as a band of squared distances |p|^2 - 2 p.c + |c|^2, the bounds carrying
+    # |c|^2 over: twice as fast as the distances themselves, and the same counts but for points
+    # within rounding of a band's edge (outer products, not a matrix product: a threaded BLAS
+    # call costs more than it saves at this size)
+    px, py = points[:, 0], points[:, 1]
+    cross = np.multiply.outer(-2.0 * cx, px)
+    cross += np.multiply.outer(-2.0 * cy, py)
+    cross += (px * px + py * py)[None, :]
+    cc = cx * cx + cy * cy
+    lo2 = np.where(r > tol, (r - tol) ** 2, -np.inf) - cc
+    hi2 = (r + tol) ** 2 - cc
+    counts = ((cross > lo2[:, None]) & (cross < hi2[:, None])).sum(axis=1)
+    j = int(np.argmax(counts))
+    best = (cx[j], cy[j], r[j])
     inl = np.abs(np.hypot(points[:, 0] - best[0], points[:, 1] - best[1]) - best[2]) < tol
     if inl.sum() < 10:
         return None
@@ -190,7 +198,7 @@ def find_field(grey: np.ndarray, reduce: int = 1, seed: int = 0) -> FieldResult:
     h, w = grey.shape
     short = min(h, w)
     g = cv2.GaussianBlur(grey.astype(np.float32), (0, 0), max(1.0, short / 300))
-    lo, hi = np.percentile(g, [2, 99.5])
+    lo, hi = percentile(g, 2, wide=True), percentile(g, 99.5, wide=True)
     if hi - lo < 0.04:
         return FieldResult(None, "blank frame: no contrast")
     try:
@@ -202,7 +210,7 @@ def find_field(grey: np.ndarray, reduce: int = 1, seed: int = 0) -> FieldResult:
     gx = cv2.Sobel(g, cv2.CV_32F, 1, 0, ksize=3) / 8
     gy = cv2.Sobel(g, cv2.CV_32F, 0, 1, ksize=3) / 8
     mag = np.hypot(gx, gy)
-    thr = max(0.15 * float(np.percentile(mag, 99.5)), 0.002)
+    thr = max(0.15 * float(percentile(mag, 99.5)), 0.002)
     point_sets = []
     for level in levels:
         pts = _boundary_points(g > level)
@@ -215,14 +223,21 @@ def find_field(grey: np.ndarray, reduce: int = 1, seed: int = 0) -> FieldResult:
     if len(ex) >= 30:
         point_sets.append((-1.0, np.stack([ex + 2, ey + 2], axis=1).astype(np.float64)))
     candidates = []
+    seen: dict[bytes, tuple] = {}
     for level, pts in point_sets:
         if len(pts) > 1500:  # thin out evenly, keeps RANSAC fast
             pts = pts[:: len(pts) // 1500 + 1]
+        key = pts.tobytes()
+        if key in seen:  # neighbouring levels often outline the same region: the same fit again
+            support, frac, cx, cy, r = seen[key]
+            candidates.append((support, frac, cx, cy, r, level))
+            continue
         fit = ransac_circle(pts, tol, (0.09 * short, 0.62 * short), trials=400, seed=seed)
         if fit is None:
             continue
         cx, cy, r, _ = fit
         support, frac = _score_circle(cx, cy, r, gx, gy, thr, tol)
+        seen[key] = (support, frac, cx, cy, r)
         candidates.append((support, frac, cx, cy, r, level))
     if not candidates:
         return FieldResult(None, "no circular field stop found (not an eyepiece view?)")
@@ -246,8 +261,8 @@ def _check(g, xx, yy, lo, support, frac, cx, cy, r, level, reduce):
     outside_v = g[(d > 1.08 * r) & (d < 1.35 * r)]
     if inside_v.size < 50:
         return "no circular field stop found (not an eyepiece view?)", None
-    field_level = float(np.percentile(inside_v, 98))
-    surround = float(np.percentile(outside_v, 50)) if outside_v.size > 50 else float(lo)
+    field_level = float(percentile(inside_v, 98))
+    surround = float(percentile(outside_v, 50)) if outside_v.size > 50 else float(lo)
     contrast = (field_level - surround) / max(field_level, 1e-6)
     circle = FieldCircle(cx * reduce + (reduce - 1) / 2, cy * reduce + (reduce - 1) / 2, r * reduce,
                          support, frac, contrast,

@@ -24,6 +24,8 @@ from dataclasses import dataclass
 import cv2
 import numpy as np
 
+from critline.photo.percentile import percentile
+
 #: shortest phone focal length allowed for, as a fraction of the frame's long side: about a
 #: 24 mm-equivalent lens, the widest main camera phones use (from memory)
 PHONE_FOCAL_MIN = 0.67
@@ -181,12 +183,16 @@ def axis_angle(grey: np.ndarray, cx: float, cy: float, r: float) -> AxisEstimate
     yy, xx = np.ogrid[y0:y1, x0:x1]
     inner = ((xx - cx) ** 2 + (yy - cy) ** 2) < (0.85 * r) ** 2
     energy = gx * gx + gy * gy
-    if not inner.any() or not np.any(energy[inner] > 0):
+    # flat indices of the interior, taken once (in row order, as boolean indexing gives them)
+    at = np.flatnonzero(inner)
+    e_in = energy.ravel()[at]
+    if not at.size or not np.any(e_in > 0):
         return AxisEstimate(0.0, 0.0)  # no field interior in the photo (or a flat one): no direction
     # the strongest fifth of the gradients carries nearly all the weight: use only those
-    sel = inner & (energy >= np.percentile(energy[inner], 80))
-    gxs, gys = gx[sel], gy[sel]
-    wgt = energy[sel]
+    strong = e_in >= percentile(e_in, 80)
+    at = at[strong]
+    gxs, gys = gx.ravel()[at], gy.ravel()[at]
+    wgt = e_in[strong]
     doubled = np.arctan2(2 * gxs * gys, gxs ** 2 - gys ** 2)
     # orientation histogram (doubled angle): the peak, not the mean, so that other structure
     # (labels, dust, a curved crescent) spreads out instead of pulling the estimate
@@ -195,11 +201,12 @@ def axis_angle(grey: np.ndarray, cx: float, cy: float, r: float) -> AxisEstimate
     kern = np.exp(-0.5 * (np.arange(-6, 7) / 2.0) ** 2)
     smooth = np.convolve(np.concatenate([hist[-6:], hist, hist[:6]]), kern, mode="same")[6:-6]
     peak = (np.argmax(smooth) + 0.5) / nb * 2 * np.pi - np.pi
-    near = np.abs(np.angle(np.exp(1j * (doubled - peak)))) < np.deg2rad(8)
+    # angular distance from the peak, wrapped to [-pi, pi) by arithmetic (no complex exponential)
+    near = np.abs(np.mod(doubled - peak + np.pi, 2 * np.pi) - np.pi) < np.deg2rad(8)
     c2 = float(np.sum(wgt[near] * np.cos(doubled[near])))
     s2 = float(np.sum(wgt[near] * np.sin(doubled[near])))
     angle = 0.5 * np.arctan2(s2, c2)
-    coherence = float(wgt[near].sum() / max(float(energy[inner].sum()), 1e-12))
+    coherence = float(wgt[near].sum() / max(float(e_in.sum()), 1e-12))
     return AxisEstimate(float(angle), coherence)
 
 
