@@ -104,6 +104,13 @@ FULL_SCALE = CHANNEL_FULL_SCALE
 FRINGE_MIN = 0.0015
 #: A dispersion estimate is reported only below this relative uncertainty.
 DISPERSION_MAX_RELATIVE = 1.0 / 3.0
+#: Widest spread of one edge's channel onsets (scale units) that can be a coloured fringe.  Snell's
+#: law with the default prism (N-LASF31A) at the channels' effective wavelengths: a stone without
+#: dispersion at n = 1.81 spreads blue below red by 0.023; a stone as dispersive as Abbe number 15
+#: (more than any common stone below a 1.81 liquid, from memory) spreads them the other way by
+#: about 0.04 at n = 1.8, 0.02 at n = 1.5.  Channel edges spread wider than this (plus three blur
+#: widths) are not one edge seen in three colours.
+FRINGE_MAX = 0.03
 
 
 @functools.cache
@@ -430,15 +437,96 @@ def reread_edges(edges, values, rgb, *, liquid_ri=None, prism_index=1.88, per_ch
     out = []
     for i in range(k):
         fits = {c: v[i] for c, v in agree.items()}
+        if _same_as(fits, others):
+            continue  # the luminance analysis named this step the contact liquid's edge
+        if not _one_fringe(fits):
+            # paired by order, the channels' edges are too far apart to be one fringe (a faint
+            # step found in one channel only shifts the order): no channel reading of this edge
+            near = [e for e in stones if min(abs(f.value - e.value) for f in fits.values()) <= FRINGE_MAX]
+            for e in near:
+                if all(abs(e.value - o.value) > 1e-9 for o in out):
+                    out.append(_luminance_fallback(e, per_channel, v_sorted, rgb_sorted))
+            continue
         # the edge fit's own hidden_by_clipping is set for any flat bright field once the
         # channel is scaled to its top, so only the channel's own clip test decides here
         clean = {c: f for c, f in fits.items() if not f.figures.get("channel_clipped")}
         if len(clean) >= 2:
             fits = clean  # a clipped corner biases a channel's onset low
+        elif len(clean) == 1 and len(fits) == 3:
+            fits = _least_hidden(fits, clean, v_sorted, rgb_sorted)
         ref = fits.get("green", next(iter(fits.values())))
         lum = min(stones, key=lambda e, ref=ref: abs(e.value - ref.value)) if stones else ref
         out.append(white_light_edge(lum, fits, v_sorted, rgb_sorted, luminance_stones=len(stones), glass=glass))
     return out + others
+
+
+def _one_fringe(fits) -> bool:
+    """True when the channel onsets paired as one edge lie within one coloured fringe (:data:`FRINGE_MAX`)."""
+    vals = [f.value for f in fits.values()]
+    blur = max(f.width for f in fits.values())
+    return max(vals) - min(vals) <= FRINGE_MAX + 3.0 * blur
+
+
+def _same_as(fits, others) -> bool:
+    """True when the channels' edge lies on a non-stone edge of the luminance analysis (the liquid's)."""
+    mid = float(np.median([f.value for f in fits.values()]))
+    blur = max(f.width for f in fits.values())
+    return any(abs(o.value - mid) <= max(0.003, 2.0 * max(blur, o.width)) for o in others)
+
+
+def _luminance_fallback(e, per_channel, values, rgb_sorted):
+    """A luminance stone edge kept as it is in white light, its uncertainty widened by the fringe."""
+    from critline.photo.edges import EdgeFit, white_light_value
+
+    near = {c: min(v, key=lambda f: abs(f.value - e.value)) for c, v in per_channel.items() if v}
+    near = {c: f for c, f in near.items() if abs(f.value - e.value) <= FRINGE_MAX}
+    fb = white_light_value(e, near)
+    b = yellow_green_boundary(values, rgb_sorted, e.value)
+    return EdgeFit(fb.value, fb.uncertainty, fb.kind, fb.contrast, fb.width,
+                   dict(fb.figures, white_light_method="luminance",
+                        yellow_green_boundary=b if math.isfinite(b) else None))
+
+
+def hidden_ratio(values, channel, reference, fits) -> float:
+    """How much of a clipped channel's rise is hidden, relative to an unclipped reference channel.
+
+    Below the edge, away from the fringe, every channel sees the same lamp through the
+    same Fresnel reflectance (its dependence on wavelength is only through the small
+    dispersion of n/N), so the ratio of the dark level to the level just above the edge
+    is the same in every channel as long as the channel is not clipped.  A clipped
+    channel shows its clip level instead of its bright level, so its ratio is larger by
+    the factor its true bright level exceeds the clip.  Returns that ratio of ratios
+    (about 1 unclipped, larger the more is hidden; NaN when the levels are not seen).
+    """
+    values = np.asarray(values, float)
+    lo = min(f.value for f in fits.values())
+    hi = max(f.value for f in fits.values())
+    blur = max(f.width for f in fits.values())
+    margin = max(0.008, 3.0 * blur)
+    dark = (values >= lo - margin - 0.02) & (values <= lo - margin)
+    bright = (values >= hi + max(0.002, 2.0 * blur)) & (values <= hi + max(0.002, 2.0 * blur) + 0.008)
+    if np.count_nonzero(dark) < 5 or np.count_nonzero(bright) < 5:
+        return float("nan")
+    ratio = [float(np.median(ch[dark]) / np.median(ch[bright])) for ch in (channel, reference)]
+    if not (ratio[1] > 0 and np.isfinite(ratio[0])):
+        return float("nan")
+    return ratio[0] / ratio[1]
+
+
+def _least_hidden(fits, clean, values, rgb_sorted):
+    """One unclipped channel and two clipped ones: keep the clipped channel that hides less.
+
+    A clipped channel's onset sits low by the part of its rise the clip hides; the two
+    channels are ranked by :func:`hidden_ratio` against the unclipped one and the one
+    hiding more is left out (with both, its low onset pulls the dispersion fit down).
+    """
+    (ref_name,) = clean
+    ref = rgb_sorted[CHANNELS.index(ref_name)]
+    ranks = {c: hidden_ratio(values, rgb_sorted[CHANNELS.index(c)], ref, fits) for c in fits if c != ref_name}
+    if not all(np.isfinite(list(ranks.values()))):
+        return fits
+    keep = min(ranks, key=ranks.get)
+    return {c: f for c, f in fits.items() if c in (ref_name, keep)}
 
 
 def white_light_edge(edge, fits, values, rgb_sorted, luminance_stones=1, glass=None):
