@@ -138,15 +138,18 @@ def _interp_weights(grid, at):
     return index, pos - index
 
 
-def _dark(window: Window, n, g, with_tone=False):
+def _dark(window: Window, n, g, with_tone=False, out=None, tone=None):
     """``1 - R(t; n, N) ** g`` on the grid: the same Fresnel equations as :func:`reflectance`.
 
     Zero from the onset up (total reflection), so only the grid below ``n`` is
     computed.  With ``with_tone`` also returns its derivative with respect to
-    ``log g``, ``-g R**g log R``.
+    ``log g``, ``-g R**g log R``.  ``out`` and ``tone``, zero-filled rows of the
+    grid's length, are written in place when given (no new arrays in the fit's loop).
     """
-    out = np.zeros(window.grid.size)
-    tone = np.zeros(window.grid.size) if with_tone else None
+    if out is None:
+        out = np.zeros(window.grid.size)
+    if with_tone and tone is None:
+        tone = np.zeros(window.grid.size)
     stop = int(np.searchsorted(window.grid, n))
     if stop == 0:
         return (out, tone) if with_tone else out
@@ -244,12 +247,23 @@ def solve_linear(basis, window: Window, return_weights=False):
     return (coef, w) if return_weights else coef
 
 
+def _scaled_normal(a):
+    """``a^T a`` scaled to a unit diagonal, plus 1e-12 on the diagonal, and the scale.
+
+    The same numbers as ``normal / outer(scale, scale) + 1e-12 * eye`` without the two
+    temporary matrices (the fit calls this some thousand times per photo).
+    """
+    normal = a.T @ a
+    scale = np.sqrt(np.maximum(normal.diagonal(), 1e-300))
+    normal /= scale[:, None] * scale[None, :]
+    normal.flat[:: len(scale) + 1] += 1e-12
+    return normal, scale
+
+
 def _weighted_solve(basis, y, w):
     a = basis * w[:, None]
     b = y * w
-    normal = a.T @ a
-    scale = np.sqrt(np.maximum(np.diag(normal), 1e-300))
-    normal = normal / np.outer(scale, scale) + 1e-12 * np.eye(len(scale))
+    normal, scale = _scaled_normal(a)
     try:
         return np.linalg.solve(normal, (a.T @ b) / scale) / scale
     except np.linalg.LinAlgError:
@@ -279,6 +293,12 @@ class _Problem:
         self.count = count
         self._key = None
         self._ift = 2j * np.pi * window.freq
+        # fixed for the fit: computed once, not at every evaluation
+        self._tau_grid = window.tau_grid
+        self._tau = window.tau
+        self._index1 = window.interp_index + 1
+        self._rest = 1.0 - window.interp_frac
+        self._clipped = bool(window.clipped.any())
 
     def _update(self, theta):
         key = theta.tobytes()
@@ -286,34 +306,33 @@ class _Problem:
             return
         win, count = self.window, self.count
         onsets, sigma, g = unpack(theta, count)
-        rows = np.empty((count + 1, win.grid.size))
-        tones = np.empty((count, win.grid.size))
+        rows = np.zeros((count + 1, win.grid.size))
+        tones = np.zeros((count, win.grid.size))
         for k, n in enumerate(onsets):
-            rows[k], tones[k] = _dark(win, n, g, with_tone=True)
-        rows[count] = win.tau_grid * rows[:count].sum(axis=0)
+            _dark(win, n, g, with_tone=True, out=rows[k], tone=tones[k])
+        rows[count] = self._tau_grid * rows[:count].sum(axis=0)
         spectrum = rfft(rows, n=win.fft_len, axis=-1)
         omega2 = (2.0 * np.pi * sigma * win.freq) ** 2
         transfer = np.exp(-0.5 * omega2)
         blurred = irfft(np.concatenate([spectrum * transfer,
                                         spectrum[:count] * (transfer * omega2 * omega2)]),
                         n=win.fft_len, axis=-1)[:, : win.grid.size]
-        index, frac = win.interp_index, win.interp_frac
-        at = blurred[:, index] * (1.0 - frac) + blurred[:, index + 1] * frac
-        tau = win.tau
+        at = blurred[:, win.interp_index] * self._rest + blurred[:, self._index1] * win.interp_frac
+        tau = self._tau
         basis = np.empty((tau.size, n_linear(count)))
         basis[:, 0] = 1.0
         basis[:, 1] = tau
         basis[:, 2 : 2 + count] = (1.0 - at[:count]).T
         basis[:, 2 + count] = count * tau - at[count]
         basis[:, 3 + count :] = -at[count + 1 :].T
-        if win.clipped.any():
+        if self._clipped:
             # with the top of the edge clipped the blur shape cannot be told from the
             # edge's own amplitude: keep the plain Gaussian blur there
             basis[:, 3 + count :] = 0.0
         coef, weight = solve_linear(basis, win, return_weights=True)
         model = basis @ coef
         r = (win.brightness - model) * win.weight
-        if win.clipped.any():
+        if self._clipped:
             r = np.where(win.clipped, np.maximum(win.clip_level - model, 0.0) * win.weight, r)
         self._key = key
         self.r, self.basis, self.coef, self.weight = r, basis, coef, weight
@@ -339,20 +358,17 @@ class _Problem:
             - (shape[:, None] * ((4 * w2 * w2 - w2**3) * t)) * spec[:count]
         derivs.append(d_sigma.sum(axis=0) + q * w2 * t * spec[count])
         # log g
-        tone_a = amps @ self.tones + q * win.tau_grid * self.tones.sum(axis=0)
+        tone_a = amps @ self.tones + q * self._tau_grid * self.tones.sum(axis=0)
         tone_s = shape @ self.tones
         spec_tone = rfft(np.stack([tone_a, tone_s]), n=win.fft_len, axis=-1)
         derivs.append(-(t * spec_tone[0] + t * w2 * w2 * spec_tone[1]))
         dm_grid = irfft(np.stack(derivs), n=win.fft_len, axis=-1)[:, : win.grid.size]
-        index, frac = win.interp_index, win.interp_frac
-        dm = dm_grid[:, index] * (1.0 - frac) + dm_grid[:, index + 1] * frac  # (K + 2, m)
+        dm = dm_grid[:, win.interp_index] * self._rest + dm_grid[:, self._index1] * win.interp_frac  # (K + 2, m)
         # cumulative onsets: theta_j moves every onset from j up
         dm[:count] = np.cumsum(dm[:count][::-1], axis=0)[::-1]
         v = (dm * self.weight).T  # d(weighted model)/d(theta), inactive clipped rows zero
         a = self.basis * self.weight[:, None]
-        normal = a.T @ a
-        scale = np.sqrt(np.maximum(np.diag(normal), 1e-300))
-        normal = normal / np.outer(scale, scale) + 1e-12 * np.eye(len(scale))
+        normal, scale = _scaled_normal(a)
         try:
             proj = np.linalg.solve(normal, (a.T @ v) / scale[:, None]) / scale[:, None]
         except np.linalg.LinAlgError:

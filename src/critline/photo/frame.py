@@ -282,10 +282,15 @@ def make_frame(rgb: np.ndarray, cx: float, cy: float, r: float, angle: float, re
     if warped.dtype != np.float32:
         warped = warped.astype(np.float32) * np.float32(1.0 / (65535.0 if rgb.dtype == np.uint16 else 255.0))
     h, w = rgb.shape[:2]
-    valid = cv2.warpAffine(np.ones((h, w), np.uint8), m, (n, n), flags=cv2.INTER_NEAREST | cv2.WARP_INVERSE_MAP,
-                           borderMode=cv2.BORDER_CONSTANT, borderValue=0) > 0
     grey = (0.299 * warped[..., 0] + 0.587 * warped[..., 1] + 0.114 * warped[..., 2]).astype(np.float32)
     ii, jj = np.ogrid[0:n, 0:n]
-    inside = valid & (((ii - half) ** 2 + (jj - half) ** 2) < (0.97 * r) ** 2)
+    inside = ((ii - half) ** 2 + (jj - half) ** 2) < (0.97 * r) ** 2
+    if not (cx - r >= 1 and cy - r >= 1 and cx + r <= w - 2 and cy + r <= h - 2):
+        # part of the field lies outside the photo: those pixels are not inside (the rotation keeps
+        # distances, so with the whole circle in the photo every pixel within 0.97 r maps into it)
+        valid = cv2.warpAffine(np.ones((h, w), np.uint8), m, (n, n),
+                               flags=cv2.INTER_NEAREST | cv2.WARP_INVERSE_MAP,
+                               borderMode=cv2.BORDER_CONSTANT, borderValue=0) > 0
+        inside &= valid
     return FieldFrame(grey, warped, inside, float(angle), float(cx), float(cy), half, reduce, float(r), stop,
                       float(perspective), stop_cov, float(stop_seen))

@@ -35,6 +35,8 @@ _REDUCED_GREY = {1: cv2.IMREAD_GRAYSCALE, 2: cv2.IMREAD_REDUCED_GRAYSCALE_2,
                  4: cv2.IMREAD_REDUCED_GRAYSCALE_4, 8: cv2.IMREAD_REDUCED_GRAYSCALE_8}
 _REDUCED_COLOUR = {1: cv2.IMREAD_COLOR, 2: cv2.IMREAD_REDUCED_COLOR_2,
                    4: cv2.IMREAD_REDUCED_COLOR_4, 8: cv2.IMREAD_REDUCED_COLOR_8}
+#: OpenCV 4.10 and later decode straight to RGB order (the same pixels, no channel swap pass)
+_RGB_ORDER = getattr(cv2, "IMREAD_COLOR_RGB", None)
 
 
 #: ISO base media file brands of HEIC/HEIF still images (ISO/IEC 23008-12)
@@ -229,11 +231,14 @@ def decode(photo: LoadedPhoto, reduce: int = 1, grey: bool = False, raw: bool = 
     """
     if photo.fast_jpeg:
         flags = (_REDUCED_GREY if grey else _REDUCED_COLOUR)[reduce]
+        rgb_direct = not grey and _RGB_ORDER is not None
+        if rgb_direct:
+            flags = (flags & ~cv2.IMREAD_COLOR) | _RGB_ORDER
         arr = cv2.imdecode(np.frombuffer(photo.data, np.uint8), flags)
         if arr is None:
             raise PhotoRejected("corrupt JPEG data (decoder failed)")
         scale = 1.0 / 255.0
-        if not grey:
+        if not grey and not rgb_direct:
             arr = cv2.cvtColor(arr, cv2.COLOR_BGR2RGB)
     else:
         arr = photo.pixels
