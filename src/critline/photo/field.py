@@ -211,54 +211,75 @@ def find_field(grey: np.ndarray, reduce: int = 1, seed: int = 0) -> FieldResult:
     gy = cv2.Sobel(g, cv2.CV_32F, 0, 1, ksize=3) / 8
     mag = np.hypot(gx, gy)
     thr = max(0.15 * float(percentile(mag, 99.5)), 0.002)
-    point_sets = []
-    for level in levels:
-        pts = _boundary_points(g > level)
-        if len(pts) >= 30:
-            point_sets.append((level, pts))
-    # edge points of strong gradient (the field stop where the shadow's dark half meets the surround)
-    u8 = np.clip((g - lo) / max(hi - lo, 1e-6) * 255, 0, 255).astype(np.uint8)
-    edges = cv2.Canny(u8, 20, 50, L2gradient=True)
-    ey, ex = np.nonzero(edges[2:-2, 2:-2])
-    if len(ex) >= 30:
-        point_sets.append((-1.0, np.stack([ex + 2, ey + 2], axis=1).astype(np.float64)))
     candidates = []
     seen: dict[bytes, tuple] = {}
-    for level, pts in point_sets:
+    checked: dict[int, tuple] = {}
+    grid = []
+
+    def check(i):
+        """_check of candidate i, once."""
+        if i not in checked:
+            if not grid:
+                grid.extend(np.ogrid[0:h, 0:w][::-1])  # xx (a row), yy (a column)
+            support, frac, cx, cy, r, level = candidates[i]
+            checked[i] = _check(g, grid[0], grid[1], lo, support, frac, cx, cy, r, level, reduce)
+        return checked[i]
+
+    for level, pts in _point_sets(g, levels, lo, hi):
         if len(pts) > 1500:  # thin out evenly, keeps RANSAC fast
             pts = pts[:: len(pts) // 1500 + 1]
         key = pts.tobytes()
         if key in seen:  # neighbouring levels often outline the same region: the same fit again
             support, frac, cx, cy, r = seen[key]
-            candidates.append((support, frac, cx, cy, r, level))
-            continue
-        fit = ransac_circle(pts, tol, (0.09 * short, 0.62 * short), trials=400, seed=seed)
-        if fit is None:
-            continue
-        cx, cy, r, _ = fit
-        support, frac = _score_circle(cx, cy, r, gx, gy, thr, tol)
-        seen[key] = (support, frac, cx, cy, r)
+        else:
+            fit = ransac_circle(pts, tol, (0.09 * short, 0.62 * short), trials=400, seed=seed)
+            if fit is None:
+                continue
+            cx, cy, r, _ = fit
+            support, frac = _score_circle(cx, cy, r, gx, gy, thr, tol)
+            seen[key] = (support, frac, cx, cy, r)
         candidates.append((support, frac, cx, cy, r, level))
+        if support >= 1.0:
+            # fully outlined: no later candidate can rank before it (the sort below is stable), so
+            # the first such circle that passes the checks is the answer; the other point sets
+            # need not be traced
+            _, circle = check(len(candidates) - 1)
+            if circle is not None:
+                return FieldResult(circle)
     if not candidates:
         return FieldResult(None, "no circular field stop found (not an eyepiece view?)")
     # best-outlined circle first; a candidate that fails the checks (e.g. a vignetting
     # crescent's arc) gives way to the next
-    candidates.sort(key=lambda c: -c[0])
+    order = sorted(range(len(candidates)), key=lambda i: -candidates[i][0])
     first_reason = None
-    yy, xx = np.mgrid[0:h, 0:w]
-    for support, frac, cx, cy, r, level in candidates:
-        reason, circle = _check(g, xx, yy, lo, support, frac, cx, cy, r, level, reduce)
+    for i in order:
+        reason, circle = check(i)
         if circle is not None:
             return FieldResult(circle)
         first_reason = first_reason or reason
     return FieldResult(None, first_reason)
 
 
+def _point_sets(g, levels, lo, hi):
+    """Boundary point sets of the field, in order: the largest region above each level, then
+    the edge points of strong gradient (the field stop where the shadow's dark half meets the
+    surround); each is traced only when asked for."""
+    for level in levels:
+        pts = _boundary_points(g > level)
+        if len(pts) >= 30:
+            yield level, pts
+    u8 = np.clip((g - lo) / max(hi - lo, 1e-6) * 255, 0, 255).astype(np.uint8)
+    edges = cv2.Canny(u8, 20, 50, L2gradient=True)
+    ey, ex = np.nonzero(edges[2:-2, 2:-2])
+    if len(ex) >= 30:
+        yield -1.0, np.stack([ex + 2, ey + 2], axis=1).astype(np.float64)
+
+
 def _check(g, xx, yy, lo, support, frac, cx, cy, r, level, reduce):
     """(reason, None) when the circle is not a field stop, else (None, FieldCircle)."""
-    d = np.hypot(xx - cx, yy - cy)
-    inside_v = g[d < 0.9 * r]
-    outside_v = g[(d > 1.08 * r) & (d < 1.35 * r)]
+    d2 = (xx - cx) ** 2 + (yy - cy) ** 2  # squared distances: no square root per pixel
+    inside_v = g[d2 < (0.9 * r) ** 2]
+    outside_v = g[(d2 > (1.08 * r) ** 2) & (d2 < (1.35 * r) ** 2)]
     if inside_v.size < 50:
         return "no circular field stop found (not an eyepiece view?)", None
     field_level = float(percentile(inside_v, 98))
