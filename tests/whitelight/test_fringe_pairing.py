@@ -61,3 +61,26 @@ def test_hidden_ratio_of_a_clipped_channel():
     assert abs(hidden_ratio(values, clipped, ref, fits) - 1.6) < 0.05
     # an unclipped channel hides nothing
     assert abs(hidden_ratio(values, 0.9 * shape, ref, fits) - 1.0) < 0.01
+
+
+def test_unknown_light_read_by_unclipped_channels():
+    from critline.photo.whitelight import reread_unknown_light
+
+    values = np.linspace(1.50, 1.60, 500)
+    rgb = np.ones((3, values.size))
+    lum = [_fit(1.5440)]
+    # monochromatic light: every channel's onset at the same scale value; the channel reading
+    # returns it at 589.3 nm (Snell's law with the N-LASF31A formula; 1e-5 from the Cauchy form)
+    same = {c: (_fit(1.5440),) for c in ("red", "green", "blue")}
+    (out,) = reread_unknown_light(lum, values, rgb, per_channel=same)
+    assert abs(out.value - 1.5440) < 5e-5
+    assert out.figures["white_light_method"] == "channel_cauchy_unknown_light"
+    # a white-light fringe of a stone without dispersion: blue below red by n (1/r_b - 1/r_r)
+    lam = effective_wavelengths()
+    fringe = {c: (_fit(1.5440 / float(prism_ratio(lam[c]))),) for c in ("red", "green", "blue")}
+    (out,) = reread_unknown_light([_fit(1.5420)], values, rgb, per_channel=fringe)
+    assert abs(out.value - 1.5440) < 2e-4
+    # two clipped channels: their onsets sit low, the luminance edge is kept as it is
+    clipped = dict(same, red=(_fit(1.5400, clipped=True),), green=(_fit(1.5410, clipped=True),))
+    (out,) = reread_unknown_light(lum, values, rgb, per_channel=clipped)
+    assert out is lum[0]

@@ -460,6 +460,46 @@ def reread_edges(edges, values, rgb, *, liquid_ri=None, prism_index=1.88, per_ch
     return out + others
 
 
+def reread_unknown_light(edges, values, rgb, *, per_channel, glass=None):
+    """Stone edges of a profile whose light could not be told, read from unclipped channels where they agree.
+
+    The channel reading needs no decision on the light.  In white light it is the
+    reading of :func:`reread_edges`.  In monochromatic light every channel's onset
+    lies at the same scale value ``s``; the channel indices ``s N(lambda_c) / N_D``
+    then follow the prism's own dispersion, and the two-term Cauchy fit evaluated at
+    589.3 nm returns ``s`` (N-LASF31A's ``N(lambda) / N_D`` follows the Cauchy form
+    over 458-612 nm so closely that the fit through three equal onsets is off by
+    1e-5, tests/whitelight).  It does need channels whose corner is seen: each
+    luminance stone edge is re-read only when two or more unclipped channels show
+    the same number of stone edges as the luminance, lying within one fringe of
+    each other and not on the contact liquid's edge; otherwise the luminance edges
+    are kept unchanged.  A luminance fit can go astray where the channels agree
+    (a faint liquid line in its window, a shoulder taken for the onset), and the
+    luminance onset in white light sits off the 589.3 nm position by an amount
+    that depends on the stone's unknown dispersion and the phone's white balance.
+    """
+    stones = sorted((e for e in edges if e.kind == "stone"), key=lambda e: e.value)
+    others = [e for e in edges if e.kind != "stone"]
+    if not stones or not per_channel:
+        return list(edges)
+    clean = {c: v for c, v in per_channel.items() if not any(f.figures.get("channel_clipped") for f in v)}
+    agree = {c: v for c, v in clean.items() if len(v) == len(stones)}
+    if len(agree) < 2:
+        return list(edges)
+    order = np.argsort(np.asarray(values, float), kind="stable")
+    v_sorted = np.asarray(values, float)[order]
+    rgb_sorted = np.asarray(rgb, float)[:, order]
+    out = []
+    for i, e in enumerate(stones):
+        fits = {c: v[i] for c, v in agree.items()}
+        if not _one_fringe(fits) or _same_as(fits, others):
+            out.append(e)
+            continue
+        new = white_light_edge(e, fits, v_sorted, rgb_sorted, luminance_stones=len(stones), glass=glass)
+        out.append(replace(new, figures=dict(new.figures, white_light_method="channel_cauchy_unknown_light")))
+    return out + others
+
+
 def _one_fringe(fits) -> bool:
     """True when the channel onsets paired as one edge lie within one coloured fringe (:data:`FRINGE_MAX`)."""
     vals = [f.value for f in fits.values()]
