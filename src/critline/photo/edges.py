@@ -1107,6 +1107,9 @@ def analyse_profile(values, brightness, noise, *, liquid_ri=None, prism_index=1.
                 flags.add("white_light")
                 edges = whitelight.reread_edges(edges, values, rgb, liquid_ri=liquid_ri,
                                                 prism_index=prism_index, per_channel=per_channel, glass=glass)
+                if any(e.figures.get("channels_clipped") for e in edges):
+                    # a clipped channel (its onset low by up to the hidden corner) took part in the reading
+                    flags.add("channel_clipped")
             elif light == "unknown" and per_channel is not None:
                 # the light could not be told: unclipped channels give the 589.3 nm reading in either light
                 edges = whitelight.reread_unknown_light(edges, values, rgb, per_channel=per_channel, glass=glass)
