@@ -32,6 +32,7 @@ Method
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import cv2
@@ -516,13 +517,20 @@ def _identify(k, pos, lengths, coef, profile, noise, frame, col, instrument):
         bright_lines = np.ones(len(k), bool)
     med_all = max(float(np.median(lengths[bright_lines])), 1.0)
     scores, pattern, templates = {}, {}, {}
+    # the pattern score depends on the offset only through the long and medium graduations' phase
+    phase_period = math.lcm(int(le), int(me)) if le and me else int(le or me or 0)
+    whole = bool(np.all(np.mod(k, 1) == 0))
+    by_phase: dict[int, float] = {}
     for c in range(-int(k.max()) - 2, count + 2 - int(k.min())):
         absm = m + c
         on = (absm >= 0) & (absm <= count - 1)
         tmpl = float(np.sum(np.where(on, evidence, -evidence)))
         # the pattern over all lines found (it is periodic; the range is the template's business)
         absolute = k[bright_lines] + c + base
-        corr = _pattern_score(lengths[bright_lines], absolute, le, me, med_all)
+        key = (c + base) % phase_period if phase_period and whole else c
+        if key not in by_phase:
+            by_phase[key] = _pattern_score(lengths[bright_lines], absolute, le, me, med_all)
+        corr = by_phase[key]
         pattern[c] = corr
         templates[c] = tmpl
         # weak prior: an eyepiece centres its scale in the field stop (a few tenths of a radius)
