@@ -22,6 +22,7 @@ import numpy as np
 
 from critline.photo.frame import FieldFrame
 from critline.photo.load import srgb_to_linear
+from critline.photo.vignetting import crescent_transmission
 
 
 @dataclass(frozen=True)
@@ -55,6 +56,9 @@ class Profile:
     #: median profiles of 8 blocks of columns (rows as ``rows``), to tell a straight shadow edge
     #: from a curved vignetting boundary
     blocks: np.ndarray | None = None
+    #: share of each row's columns whose brightness was divided by a vignetting crescent's
+    #: transmission below 0.9 (None without a crescent)
+    vignetted: np.ndarray | None = None
 
 
 def nan_median_rows(a: np.ndarray) -> np.ndarray:
@@ -160,7 +164,7 @@ def _edge_tilt(lum: np.ndarray, cols: np.ndarray, ok: np.ndarray, period: float,
 
 
 def brightness_profile(frame: FieldFrame, v_lo: int, v_hi: int, exclude: int, period: float,
-                       max_columns: int = 240) -> Profile:
+                       max_columns: int = 240, crescent=None) -> Profile:
     """Median brightness per frame row, beside the graduation band.
 
     Parameters
@@ -174,6 +178,9 @@ def brightness_profile(frame: FieldFrame, v_lo: int, v_hi: int, exclude: int, pe
         Graduation spacing in rows (sets smoothing scales).
     max_columns : int
         Columns are subsampled evenly to at most this many.
+    crescent : critline.photo.vignetting.Crescent, optional
+        A vignetting crescent: its dimming is divided out (flat-field correction,
+        :func:`critline.photo.vignetting.crescent_transmission`) and its darkest part left out.
     """
     n = frame.grey.shape[0]
     half = frame.half
@@ -189,6 +196,13 @@ def brightness_profile(frame: FieldFrame, v_lo: int, v_hi: int, exclude: int, pe
     lin = srgb_to_linear(frame.rgb[:, cand])  # (n, m, 3)
     lum = (0.2126 * lin[..., 0] + 0.7152 * lin[..., 1] + 0.0722 * lin[..., 2]).astype(np.float32)
     ok = frame.inside[:, cand] & (np.abs(v[cand])[None, :] < 0.9 * chord[:, None])
+    if crescent is not None:
+        trans = crescent_transmission(lum, np.arange(n, dtype=float), cand.astype(float), crescent,
+                                      frame.radius, ok)
+        ok &= np.isfinite(trans)
+        dimmed = ok & (trans < 0.9)
+        lin = lin / np.where(ok, trans, 1.0)[..., None]
+        lum = (0.2126 * lin[..., 0] + 0.7152 * lin[..., 1] + 0.0722 * lin[..., 2]).astype(np.float32)
     v_ref = (v_lo + v_hi) / 2 - half
     tilt, edge_scatter = _edge_tilt(lum, v[cand], ok, period, np.abs(rows) < 0.85 * frame.radius)
     if tilt != 0.0:
@@ -217,6 +231,9 @@ def brightness_profile(frame: FieldFrame, v_lo: int, v_hi: int, exclude: int, pe
     noise = np.maximum(noise, 1e-4)
     blocks = np.stack([nan_median_rows(sub[:, b]) for b in np.array_split(np.arange(sub.shape[1]), 8)
                        if len(b)]) if len(sel) else None
+    vignetted = None
+    if crescent is not None:
+        vignetted = (dimmed.sum(axis=1) / np.maximum(ok.sum(axis=1), 1))[sel]
     return Profile(sel.astype(float), med[sel], noise[sel], rgb[:, sel], int(len(cand)), tilt,
                    {"profile_columns": int(len(cand)), "edge_tilt": tilt, "edge_row_scatter": edge_scatter},
-                   blocks)
+                   blocks, vignetted)
