@@ -125,3 +125,20 @@ def test_transmission_curve_recovered_and_divided_out():
     flat = lum / np.where(known, t, 1.0)
     bright_rows = slice(200, 300)
     assert np.allclose(np.nanmedian(np.where(known, flat, np.nan)[bright_rows], axis=1), 0.9, atol=0.02)
+
+
+def test_overlay_marks_the_crescent(tmp_path):
+    # the evidence shows where the crescent's dimming was divided out (the lit circle's arc)
+    from PIL import Image
+
+    from critline.photo.overlay import _BLUE
+
+    path, _ = _photo(tmp_path, 34, crescent=0.4, crescent_angle_deg=200.0, axis_angle_deg=0.0,
+                     stone_ris=(1.6,))
+    out = tmp_path / "marked"
+    out.mkdir()
+    read_photo(path, overlay_dir=out)
+    marked = np.asarray(Image.open(next(out.iterdir())).convert("RGB")).astype(int)
+    blue_rgb = np.array(_BLUE[::-1])  # the overlay draws in OpenCV's BGR order
+    close = np.abs(marked - blue_rgb).sum(axis=2) < 60
+    assert close.sum() > 100

@@ -21,6 +21,7 @@ from critline.photo.load import LoadedPhoto, decode
 
 MAX_SIDE = 1600
 _GREEN, _CYAN, _MAGENTA, _YELLOW, _WHITE = (60, 220, 60), (230, 200, 40), (220, 60, 220), (40, 220, 240), (255, 255, 255)
+_BLUE = (255, 90, 70)
 
 
 def _text(img, text, org, scale, colour):
@@ -48,6 +49,17 @@ def render_overlay(photo: LoadedPhoto, reading, evidence: dict | None) -> np.nda
     if circle is not None:
         cx, cy = to_img(circle.cx, circle.cy)
         cv2.circle(img, (int(cx), int(cy)), int(circle.r * sx), _GREEN, max(1, int(2 * fs)), cv2.LINE_AA)
+    crescent, cframe = ev.get("crescent"), ev.get("crescent_frame")
+    if crescent is not None and cframe is not None:
+        # the lit circle's boundary inside the field: where the crescent's dimming was divided out
+        t = np.linspace(0, 2 * np.pi, 361)
+        rows, cols = crescent.cy + crescent.r * np.sin(t), crescent.cx + crescent.r * np.cos(t)
+        seen = np.hypot(rows - cframe.half, cols - cframe.half) < cframe.radius
+        xs, ys = to_img(*cframe.to_photo(rows, cols))
+        pts = np.stack([xs, ys], axis=1).astype(np.int32)
+        for a, b, keep in zip(pts[:-1], pts[1:], seen[:-1] & seen[1:], strict=True):
+            if keep:
+                cv2.line(img, (int(a[0]), int(a[1])), (int(b[0]), int(b[1])), _BLUE, max(2, int(2 * fs)), cv2.LINE_AA)
     frame, grads = ev.get("frame"), ev.get("graduations")
     if frame is not None and grads is not None:
         col = grads.column

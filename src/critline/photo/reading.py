@@ -437,6 +437,7 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
     if crescent is not None:
         figures.update({"crescent_share": crescent.share, "crescent_dark_ratio": crescent.dark_ratio})
         evidence["crescent"] = crescent
+        evidence["crescent_frame"] = frame  # its circle is in this frame's pixels (before any flip)
     prof = brightness_profile(frame, col.v_lo, col.v_hi, exclude, col.period, crescent=crescent)
     # the plain profile too: where an edge is seen mostly through the crescent, the divided-out
     # dimming is not trusted (see VIGNETTED_EDGE_SHARE)
