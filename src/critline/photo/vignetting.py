@@ -80,23 +80,26 @@ def _vote(pts, gdir, weight, half: float, rad: float):
     # all trial radii at once: (radius, row bin, column bin) counts
     centres = pts[None, :, :] + radii[:, None, None] * gdir[None, :, :]
     ij = np.floor((centres - origin) / bin_px).astype(np.int64)
-    keep = (ij >= 0).all(axis=2) & (ij < nbin).all(axis=2)
+    # one unsigned comparison per coordinate keeps the votes inside the grid (negatives wrap high)
+    keep = (ij[..., 0].astype(np.uint64) < nbin) & (ij[..., 1].astype(np.uint64) < nbin)
     k = np.broadcast_to(np.arange(len(radii))[:, None], keep.shape)[keep]
     flat = (k * nbin + ij[..., 1][keep]) * nbin + ij[..., 0][keep]
     w = np.broadcast_to(weight[None, :], keep.shape)[keep]
     acc = np.bincount(flat, weights=w, minlength=len(radii) * nbin * nbin).reshape(len(radii), nbin, nbin)
-    best = (0.0, None, None)
+    # every trial radius smoothed in one call (radii as the image's channels)
+    acc = cv2.GaussianBlur(np.ascontiguousarray(acc.transpose(1, 2, 0), dtype=np.float32), (0, 0), 1.0)
+    acc = acc.reshape(nbin, nbin, len(radii))
     ic = int((half - origin) / bin_px)
     ks = int(round(0.1 * rad / bin_px))
-    for n, radius in enumerate(radii):
-        a = cv2.GaussianBlur(acc[n].astype(np.float32), (0, 0), 1.0)
-        if abs(radius - rad) < 0.1 * rad:
-            # the stop's own circle (its ramp inside 0.88 radii is faint, but not nothing)
-            a[max(0, ic - ks):ic + ks + 1, max(0, ic - ks):ic + ks + 1] = 0
-        i, j = np.unravel_index(int(np.argmax(a)), a.shape)
-        if a[i, j] > best[0]:
-            best = (float(a[i, j]), np.array([origin + (j + 0.5) * bin_px, origin + (i + 0.5) * bin_px]),
-                    float(radius))
+    # the stop's own circle (its ramp inside 0.88 radii is faint, but not nothing)
+    like_stop = np.abs(radii - rad) < 0.1 * rad
+    acc[max(0, ic - ks):ic + ks + 1, max(0, ic - ks):ic + ks + 1, like_stop] = 0
+    peak = acc.reshape(-1, len(radii)).max(axis=0)
+    n = int(np.argmax(peak))  # the first radius reaching the highest vote, as a scan would keep
+    if not peak[n] > 0:
+        return None, None
+    i, j = np.unravel_index(int(np.argmax(acc[..., n])), (nbin, nbin))
+    best = (float(peak[n]), np.array([origin + (j + 0.5) * bin_px, origin + (i + 0.5) * bin_px]), float(radii[n]))
     return best[1], best[2]
 
 
