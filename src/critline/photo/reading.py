@@ -439,9 +439,7 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
         evidence["crescent"] = crescent
         evidence["crescent_frame"] = frame  # its circle is in this frame's pixels (before any flip)
     prof = brightness_profile(frame, col.v_lo, col.v_hi, exclude, col.period, crescent=crescent)
-    # the plain profile too: where an edge is seen mostly through the crescent, the divided-out
-    # dimming is not trusted (see VIGNETTED_EDGE_SHARE)
-    plain = brightness_profile(frame, col.v_lo, col.v_hi, exclude, col.period) if crescent else None
+    profile_frame = frame  # the profiles' frame (find_graduations may return it flipped)
     decided = {}
 
     def direction(lo, hi):
@@ -468,7 +466,9 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
     glass = prism_glass(inst) if getattr(inst, "prism_glass", None) else None
     prof = _oriented(prof, flip, n)
     analysis, values, bright, ok = _edge_analysis(prof, grads, inst, glass)
-    if plain is not None and _vignetted_share(analysis, prof, values, ok, col.period) >= VIGNETTED_EDGE_SHARE:
+    if crescent is not None and _vignetted_share(analysis, prof, values, ok, col.period) >= VIGNETTED_EDGE_SHARE:
+        # an edge seen mostly through the crescent: the divided-out dimming is not trusted there
+        plain = brightness_profile(profile_frame, col.v_lo, col.v_hi, exclude, col.period)
         prof = _oriented(plain, flip, n)
         analysis, values, bright, ok = _edge_analysis(prof, grads, inst, glass)
         figures["crescent_divided_out"] = False
