@@ -61,6 +61,11 @@ class Profile:
     vignetted: np.ndarray | None = None
 
 
+def _luminance(lin: np.ndarray) -> np.ndarray:
+    """Relative luminance of linear sRGB pixels (ITU-R BT.709 weights), float32."""
+    return (0.2126 * lin[..., 0] + 0.7152 * lin[..., 1] + 0.0722 * lin[..., 2]).astype(np.float32)
+
+
 def nan_median_rows(a: np.ndarray) -> np.ndarray:
     """Median of each row ignoring NaN (sort-based; NaN sort last).  All-NaN rows give NaN."""
     a = np.sort(a, axis=1)
@@ -194,7 +199,7 @@ def brightness_profile(frame: FieldFrame, v_lo: int, v_hi: int, exclude: int, pe
     if len(cand) > max_columns:
         cand = cand[np.linspace(0, len(cand) - 1, max_columns).astype(int)]
     lin = srgb_to_linear(frame.rgb[:, cand])  # (n, m, 3)
-    lum = (0.2126 * lin[..., 0] + 0.7152 * lin[..., 1] + 0.0722 * lin[..., 2]).astype(np.float32)
+    lum = _luminance(lin)
     ok = frame.inside[:, cand] & (np.abs(v[cand])[None, :] < 0.9 * chord[:, None])
     if crescent is not None:
         trans = crescent_transmission(lum, np.arange(n, dtype=float), cand.astype(float), crescent,
@@ -202,7 +207,7 @@ def brightness_profile(frame: FieldFrame, v_lo: int, v_hi: int, exclude: int, pe
         ok &= np.isfinite(trans)
         dimmed = ok & (trans < 0.9)
         lin = lin / np.where(ok, trans, 1.0)[..., None]
-        lum = (0.2126 * lin[..., 0] + 0.7152 * lin[..., 1] + 0.0722 * lin[..., 2]).astype(np.float32)
+        lum = _luminance(lin)
     v_ref = (v_lo + v_hi) / 2 - half
     tilt, edge_scatter = _edge_tilt(lum, v[cand], ok, period, np.abs(rows) < 0.85 * frame.radius)
     if tilt != 0.0:
@@ -213,7 +218,7 @@ def brightness_profile(frame: FieldFrame, v_lo: int, v_hi: int, exclude: int, pe
                         borderMode=cv2.BORDER_CONSTANT, borderValue=(np.nan, np.nan, np.nan))
         okf = cv2.remap(ok.astype(np.float32), grid_c, grid_r, cv2.INTER_NEAREST, borderValue=0)
         ok = (okf > 0.5) & np.isfinite(lin[..., 0])
-        lum = (0.2126 * lin[..., 0] + 0.7152 * lin[..., 1] + 0.0722 * lin[..., 2]).astype(np.float32)
+        lum = _luminance(lin)
     count = ok.sum(axis=1)
     use = count >= max(3, int(0.15 * len(cand)))
     masked = np.where(ok, lum, np.nan)

@@ -99,8 +99,7 @@ def _vote(pts, gdir, weight, half: float, rad: float):
     if not peak[n] > 0:
         return None, None
     i, j = np.unravel_index(int(np.argmax(acc[..., n])), (nbin, nbin))
-    best = (float(peak[n]), np.array([origin + (j + 0.5) * bin_px, origin + (i + 0.5) * bin_px]), float(radii[n]))
-    return best[1], best[2]
+    return np.array([origin + (j + 0.5) * bin_px, origin + (i + 0.5) * bin_px]), float(radii[n])
 
 
 def find_crescent(frame: FieldFrame, seed: int = 0) -> Crescent | None:
