@@ -45,10 +45,11 @@ def _frame(path):
     base, rb = _base_image(photo)
     coarse, rc = _coarse_grey(photo, base, rb)
     circle = find_field(coarse, rc).circle
-    rgb, rw = _working_rgb(photo, circle, base, rb)
+    work = _working_rgb(photo, circle, base, rb)
+    rw, (ox, oy) = work.reduce, work.origin
     wcx, wcy, wr = (circle.cx - (rw - 1) / 2) / rw, (circle.cy - (rw - 1) / 2) / rw, circle.r / rw
-    axis = axis_angle(cv2.cvtColor(rgb, cv2.COLOR_RGB2GRAY), wcx, wcy, wr)
-    return make_frame(rgb, wcx, wcy, wr, axis.angle, rw)
+    axis = axis_angle(cv2.cvtColor(work.rgb, cv2.COLOR_RGB2GRAY), wcx - ox, wcy - oy, wr)
+    return make_frame(work.rgb, wcx, wcy, wr, axis.angle, rw, origin=work.origin, shape=work.shape)
 
 
 @pytest.mark.parametrize("angle", [30.0, 160.0, 250.0])

@@ -30,6 +30,7 @@ import numpy as np
 from skimage.filters import threshold_otsu
 from skimage.measure import CircleModel
 
+from critline.photo.load import srgb_to_linear
 from critline.photo.percentile import percentile
 
 
@@ -73,11 +74,15 @@ class FieldResult:
 def _boundary_points(mask: np.ndarray) -> np.ndarray:
     """(x, y) boundary points of the largest region, frame-border points removed."""
     mask = mask.astype(np.uint8)
-    n, labels, stats, _ = cv2.connectedComponentsWithStats(mask, connectivity=8)
+    # the labels alone and their areas counted: several times faster than OpenCV's statistics
+    n, labels = cv2.connectedComponents(mask, connectivity=8)
     if n < 2:
         return np.empty((0, 2))
-    big = 1 + int(np.argmax(stats[1:, cv2.CC_STAT_AREA]))
-    region = (labels == big).astype(np.uint8)
+    if n == 2:
+        region = mask  # one region: the mask itself
+    else:
+        big = 1 + int(np.argmax(np.bincount(labels.ravel(), minlength=n)[1:]))
+        region = (labels == big).astype(np.uint8)
     contours, _ = cv2.findContours(region, cv2.RETR_EXTERNAL, cv2.CHAIN_APPROX_NONE)
     if not contours:
         return np.empty((0, 2))
@@ -100,6 +105,11 @@ def _circles_from_triples(p1, p2, p3):
     r = np.hypot(ax - ux, ay - uy)
     r[~np.isfinite(r)] = np.inf
     return ux, uy, r
+
+
+#: RANSAC trials scored together (a block's (trials, points) arrays of about 64 x 1500 doubles
+#: stay in cache: 1.7 times faster than all 400 at once)
+_TRIAL_BLOCK = 64
 
 
 def ransac_circle(points: np.ndarray, tol: float, r_range: tuple[float, float], trials: int = 400,
@@ -128,14 +138,20 @@ def ransac_circle(points: np.ndarray, tol: float, r_range: tuple[float, float], 
     # |c|^2 over: twice as fast as the distances themselves, and the same counts but for points
     # within rounding of a band's edge (outer products, not a matrix product: a threaded BLAS
     # call costs more than it saves at this size)
+    # (the trials are taken in blocks whose arrays stay in the processor's cache)
     px, py = points[:, 0], points[:, 1]
-    cross = np.multiply.outer(-2.0 * cx, px)
-    cross += np.multiply.outer(-2.0 * cy, py)
-    cross += (px * px + py * py)[None, :]
+    p2 = px * px + py * py
+    m2x, m2y = -2.0 * cx, -2.0 * cy
     cc = cx * cx + cy * cy
     lo2 = np.where(r > tol, (r - tol) ** 2, -np.inf) - cc
     hi2 = (r + tol) ** 2 - cc
-    counts = ((cross > lo2[:, None]) & (cross < hi2[:, None])).sum(axis=1)
+    counts = np.empty(len(cx), np.int64)
+    for s in range(0, len(cx), _TRIAL_BLOCK):
+        e = s + _TRIAL_BLOCK
+        cross = np.multiply.outer(m2x[s:e], px)
+        cross += np.multiply.outer(m2y[s:e], py)
+        cross += p2[None, :]
+        counts[s:e] = np.count_nonzero((cross > lo2[s:e, None]) & (cross < hi2[s:e, None]), axis=1)
     j = int(np.argmax(counts))
     best = (cx[j], cy[j], r[j])
     inl = np.abs(np.hypot(points[:, 0] - best[0], points[:, 1] - best[1]) - best[2]) < tol
@@ -413,9 +429,8 @@ def refine_stop(rgb: np.ndarray, cx: float, cy: float, r: float, n_rays: int = 3
     samp = cv2.remap(rgb, mx, my, interpolation=cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
     samp = samp.astype(np.float32) / np.float32(scale)
     if samp.ndim == 3:
-        samp = 0.299 * samp[..., 0] + 0.587 * samp[..., 1] + 0.114 * samp[..., 2]
-    v = np.asarray(samp, np.float32)
-    lin = np.where(v <= 0.04045, v / 12.92, ((v + 0.055) / 1.055) ** 2.4).astype(np.float32)
+        samp = cv2.cvtColor(samp, cv2.COLOR_RGB2GRAY)  # Rec. 601 luma (0.299, 0.587, 0.114)
+    lin = srgb_to_linear(samp)
     # smooth along the ray (about one working pixel) and a little across rays (noise)
     lin = cv2.GaussianBlur(lin, (0, 0), sigmaX=1.0 / step, sigmaY=0.7)
     drop = -np.gradient(lin, axis=1)

@@ -88,6 +88,9 @@ class FieldFrame:
     stop_cov: tuple[tuple[float, ...], ...] | None = None
     #: fraction of the stop's circumference whose edge took part in the refined fit (0 if not refined)
     stop_seen: float = 0.0
+    #: the stored 8-bit integers ``rgb`` was made from (``rgb = stored / 255``), for table
+    #: look-ups of their linear light; None for other sources
+    stored: np.ndarray | None = None
 
     def field_position(self, row):
         """Signed position of frame row(s) along the axis from the field-stop centre, in stop radii.
@@ -146,7 +149,8 @@ class FieldFrame:
         """The same frame with the axis direction reversed (u -> -u, v -> -v)."""
         return FieldFrame(self.grey[::-1, ::-1], self.rgb[::-1, ::-1], self.inside[::-1, ::-1],
                           self.angle + np.pi, self.cx, self.cy, self.half, self.reduce, self.radius, self.stop,
-                          self.perspective, self.stop_cov, self.stop_seen)
+                          self.perspective, self.stop_cov, self.stop_seen,
+                          None if self.stored is None else self.stored[::-1, ::-1])
 
 
 def axis_angle(grey: np.ndarray, cx: float, cy: float, r: float) -> AxisEstimate:
@@ -244,7 +248,7 @@ def perspective_sigma(r: float, shape) -> float:
 
 
 def make_frame(rgb: np.ndarray, cx: float, cy: float, r: float, angle: float, reduce: int,
-               refine: bool = True) -> FieldFrame:
+               refine: bool = True, origin: tuple[float, float] = (0.0, 0.0), shape=None) -> FieldFrame:
     """Resample the field so the scale axis runs down the rows.
 
     The frame keeps the given circle for its own geometry (centre row, ``inside``); the field
@@ -254,38 +258,48 @@ def make_frame(rgb: np.ndarray, cx: float, cy: float, r: float, angle: float, re
     Parameters
     ----------
     rgb : ndarray (H, W, 3)
-        Working image, stored (sRGB-encoded) values: float32 0..1, or uint8/uint16.
+        Working image, or the part of it around the field (see ``origin``), stored (sRGB-encoded)
+        values: float32 0..1, or uint8/uint16.
     cx, cy, r : float
-        Field circle in working pixels.
+        Field circle in working pixels (of the whole working image).
     angle : float
         Axis direction (radians).
     reduce : int
         Reduction factor of the working image relative to the photo.
     refine : bool
         Refine the field stop's outline (sub-pixel) for field positions.
+    origin : (float, float)
+        Working-image point ``(x, y)`` of ``rgb``'s pixel (0, 0) when ``rgb`` is only a part of
+        the working image; its edges count as the photo's edges.
+    shape : tuple, optional
+        The whole working image's shape (for :func:`perspective_sigma`); ``rgb.shape`` if None.
     """
     from critline.photo.field import refine_stop
 
-    outline = refine_stop(rgb, cx, cy, r) if refine else None
-    stop = None if outline is None else (outline.cx, outline.cy, outline.r)
+    ox, oy = origin
+    lx, ly = cx - ox, cy - oy  # the circle's centre in ``rgb``'s pixels
+    outline = refine_stop(rgb, lx, ly, r) if refine else None
+    stop = None if outline is None else (outline.cx + ox, outline.cy + oy, outline.r)
     stop_cov = None if outline is None else outline.cov
     stop_seen = 0.0 if outline is None else outline.rays / outline.n_rays
-    perspective = perspective_sigma(r if outline is None else outline.r, rgb.shape)
+    perspective = perspective_sigma(r if outline is None else outline.r, rgb.shape if shape is None else shape)
     half = int(np.ceil(r)) + 2
     n = 2 * half + 1
     c, s = np.cos(angle), np.sin(angle)
     # output (col j, row i) -> input (x, y): x = cx + (i-half) c - (j-half) s, y = cy + (i-half) s + (j-half) c
-    m = np.array([[-s, c, cx - half * c + half * s],
-                  [c, s, cy - half * s - half * c]], dtype=np.float64)
+    m = np.array([[-s, c, lx - half * c + half * s],
+                  [c, s, ly - half * s - half * c]], dtype=np.float64)
     warped = cv2.warpAffine(rgb, m, (n, n), flags=cv2.INTER_LINEAR | cv2.WARP_INVERSE_MAP,
                             borderMode=cv2.BORDER_CONSTANT, borderValue=(0, 0, 0))
+    stored = warped if warped.dtype == np.uint8 else None
     if warped.dtype != np.float32:
         warped = warped.astype(np.float32) * np.float32(1.0 / (65535.0 if rgb.dtype == np.uint16 else 255.0))
     h, w = rgb.shape[:2]
-    grey = (0.299 * warped[..., 0] + 0.587 * warped[..., 1] + 0.114 * warped[..., 2]).astype(np.float32)
+    # Rec. 601 luma (OpenCV's weights 0.299, 0.587, 0.114)
+    grey = cv2.cvtColor(warped, cv2.COLOR_RGB2GRAY)
     ii, jj = np.ogrid[0:n, 0:n]
     inside = ((ii - half) ** 2 + (jj - half) ** 2) < (0.97 * r) ** 2
-    if not (cx - r >= 1 and cy - r >= 1 and cx + r <= w - 2 and cy + r <= h - 2):
+    if not (lx - r >= 1 and ly - r >= 1 and lx + r <= w - 2 and ly + r <= h - 2):
         # part of the field lies outside the photo: those pixels are not inside (the rotation keeps
         # distances, so with the whole circle in the photo every pixel within 0.97 r maps into it)
         valid = cv2.warpAffine(np.ones((h, w), np.uint8), m, (n, n),
@@ -293,4 +307,4 @@ def make_frame(rgb: np.ndarray, cx: float, cy: float, r: float, angle: float, re
                                borderMode=cv2.BORDER_CONSTANT, borderValue=0) > 0
         inside &= valid
     return FieldFrame(grey, warped, inside, float(angle), float(cx), float(cy), half, reduce, float(r), stop,
-                      float(perspective), stop_cov, float(stop_seen))
+                      float(perspective), stop_cov, float(stop_seen), stored)

@@ -61,6 +61,10 @@ class Profile:
     vignetted: np.ndarray | None = None
 
 
+#: linear light of each 8-bit stored value (as :func:`srgb_to_linear` gives it for ``k / 255``)
+_LINEAR_U8 = srgb_to_linear(np.arange(256, dtype=np.float32) * np.float32(1.0 / 255.0))
+
+
 def _luminance(lin: np.ndarray) -> np.ndarray:
     """Relative luminance of linear sRGB pixels (ITU-R BT.709 weights), float32."""
     return (0.2126 * lin[..., 0] + 0.7152 * lin[..., 1] + 0.0722 * lin[..., 2]).astype(np.float32)
@@ -137,21 +141,32 @@ def _edge_tilt(lum: np.ndarray, cols: np.ndarray, ok: np.ndarray, period: float,
         blocks = np.array_split(seen, min(10, seen.size // 3))
     else:
         blocks = np.array_split(np.arange(len(cols)), 10)
+    # a block's profile is needed only in the window and its shifts: its rows there, widened by
+    # the smoothing's reach (and the gradient's step) and out to a row with data on each side
+    # (gaps are filled from there), give the same values there as the whole column would
+    reach = int(np.ceil(4 * sig)) + 2  # OpenCV's float kernel: 2 * round(4 sigma + 1) // 2 + 1
+    need_lo, need_hi = max(0, lo - max_shift - reach), min(len(ref), hi + max_shift + reach)
     shifts, where = [], []
     for b in blocks:
         if len(b) < 3:
             continue
+        sub = masked[:, b]
+        seen_rows = np.isfinite(sub).any(axis=1)
+        before = np.flatnonzero(seen_rows[:need_lo + 1])
+        after = np.flatnonzero(seen_rows[need_hi - 1:])
+        r0 = int(before[-1]) if before.size else 0
+        r1 = need_hi + int(after[0]) if after.size else len(ref)
         with np.errstate(all="ignore"):
-            pb = nan_median_rows(masked[:, b])
-        if np.isfinite(pb[lo:hi]).mean() < 0.95:
+            pb = nan_median_rows(sub[r0:r1])  # rows r0 .. r1 - 1
+        if np.isfinite(pb[lo - r0:hi - r0]).mean() < 0.95:
             continue
         db = _smooth_gradient(_fill(pb), sig)
         # tmpl has zero mean, so the segment's own mean does not change the correlation
-        cc = np.correlate(db[lo - max_shift:hi + max_shift], tmpl, mode="valid")
+        cc = np.correlate(db[lo - max_shift - r0:hi + max_shift - r0], tmpl, mode="valid")
         j = int(np.argmax(cc))
         if not (0 < j < len(cc) - 1):
             continue
-        seg = db[lo + j - max_shift:hi + j - max_shift]
+        seg = db[lo + j - max_shift - r0:hi + j - max_shift - r0]
         corr = cc[j] / (np.linalg.norm(tmpl) * np.linalg.norm(seg - seg.mean()) + 1e-12)
         if corr < 0.7:
             continue
@@ -198,7 +213,10 @@ def brightness_profile(frame: FieldFrame, v_lo: int, v_hi: int, exclude: int, pe
         cand = np.flatnonzero(np.abs(v) < 0.9 * frame.radius)
     if len(cand) > max_columns:
         cand = cand[np.linspace(0, len(cand) - 1, max_columns).astype(int)]
-    lin = srgb_to_linear(frame.rgb[:, cand])  # (n, m, 3)
+    if frame.stored is not None:  # a table look-up of the stored integers: the same values
+        lin = _LINEAR_U8[frame.stored[:, cand]]  # (n, m, 3)
+    else:
+        lin = srgb_to_linear(frame.rgb[:, cand])
     lum = _luminance(lin)
     ok = frame.inside[:, cand] & (np.abs(v[cand])[None, :] < 0.9 * chord[:, None])
     if crescent is not None:

@@ -114,23 +114,71 @@ def _coarse_grey(photo: LoadedPhoto, base: np.ndarray, rb: int) -> tuple[np.ndar
     return to_float(_shrink(cv2.cvtColor(base, cv2.COLOR_RGB2GRAY), rc // rb)), rc
 
 
-def _working_rgb(photo: LoadedPhoto, circle, base: np.ndarray, rb: int) -> tuple[np.ndarray, int]:
-    """Working image (stored integers) and its reduction (a float when shrunk by a fractional factor).
+@dataclass(frozen=True)
+class _Working:
+    """The working image's part around the field (see :func:`_working_rgb`)."""
+
+    #: stored integers (uint8 or uint16), RGB
+    rgb: np.ndarray
+    #: reduction against the photo (a float when shrunk by a fractional factor)
+    reduce: float
+    #: working-image point ``(x, y)`` of ``rgb``'s pixel (0, 0)
+    origin: tuple[float, float]
+    #: the whole working image's shape (rows, columns)
+    shape: tuple[int, int]
+
+
+def _working_rgb(photo: LoadedPhoto, circle, base: np.ndarray, rb: int) -> _Working:
+    """Working image around the field, its reduction and where it lies in the whole working image.
 
     The field is shrunk to :data:`WORK_DIAMETER_MAX` across when larger, kept as decoded down to
     :data:`MIN_WORK_DIAMETER`, and below that decoded again at a reduction that keeps it at least
-    :data:`WORK_DIAMETER` across where the photo allows.
+    :data:`WORK_DIAMETER` across where the photo allows.  Only the part of the image the later
+    stages look at is kept (:func:`_field_box`); its points map back to the photo as any working
+    point does (``x_full = (x + 0.5) * rw - 0.5``, ``x`` counted from the whole image's corner).
     """
     across = 2 * circle.r / rb  # field diameter in the decoded image
     if across > WORK_DIAMETER_MAX:
         # area averaging by a fractional factor: cv2.resize given fx keeps that exact scale, so
-        # pixel centres map back as for an integer reduction (x_full = (x + 0.5) * rw - 0.5)
+        # pixel centres map back as for an integer reduction, from the crop's corner on: pixel i
+        # of the shrunk crop covers decoded pixels [x0 + i f, x0 + (i + 1) f), working x0 / f + i
         f = across / WORK_DIAMETER_MAX
-        return cv2.resize(base, None, fx=1.0 / f, fy=1.0 / f, interpolation=cv2.INTER_AREA), rb * f
-    if across >= MIN_WORK_DIAMETER or rb == 1:
-        return base, rb
-    rw = _reduce_for(2 * circle.r, WORK_DIAMETER)
-    return decode(photo, rw, raw=True), rw  # a small field: worth a second, larger decode
+        x0, y0, x1, y1 = _field_box(circle, rb, base.shape)
+        # the crop's corner moved out to where the shrunk pixels' grid (nearly) meets the whole
+        # image's: the same area averages as shrinking the whole image, at a fraction of the cost
+        x0, y0 = _on_grid(x0, f), _on_grid(y0, f)
+        crop = cv2.resize(base[y0:y1, x0:x1], None, fx=1.0 / f, fy=1.0 / f, interpolation=cv2.INTER_AREA)
+        shape = (int(round(base.shape[0] / f)), int(round(base.shape[1] / f)))
+        return _Working(crop, rb * f, (x0 / f, y0 / f), shape)
+    img, rw = base, rb
+    if across < MIN_WORK_DIAMETER and rb > 1:
+        rw = _reduce_for(2 * circle.r, WORK_DIAMETER)
+        img = decode(photo, rw, raw=True)  # a small field: worth a second, larger decode
+    x0, y0, x1, y1 = _field_box(circle, rw, img.shape)
+    return _Working(img[y0:y1, x0:x1], rw, (float(x0), float(y0)), img.shape[:2])
+
+
+#: Half-width of the part of the photo kept around the field, in field radii: the field stop's
+#: refinement samples out to 1.2 radii (:func:`critline.photo.field.refine_stop`); the field
+#: frame's square corners beyond it are outside the stop and read as beyond the photo.
+FIELD_BOX = 1.2
+
+
+def _on_grid(start: int, f: float, reach: int = 48) -> int:
+    """The integer at most ``start`` (and ``reach`` below it, not below 0) nearest to a multiple of ``f``."""
+    cand = np.arange(max(0, start - reach), start + 1)
+    q = cand / f
+    return int(cand[np.argmin(np.abs(q - np.round(q)))])
+
+
+def _field_box(circle, reduce: float, shape) -> tuple[int, int, int, int]:
+    """Pixel box ``(x0, y0, x1, y1)`` of an image at 1/``reduce`` size holding the field's
+    neighbourhood (:data:`FIELD_BOX` radii and a few pixels for interpolation), within the image."""
+    cx, cy, r = (circle.cx - (reduce - 1) / 2) / reduce, (circle.cy - (reduce - 1) / 2) / reduce, circle.r / reduce
+    m = FIELD_BOX * r + 4
+    h, w = shape[:2]
+    return (max(0, int(np.floor(cx - m))), max(0, int(np.floor(cy - m))),
+            min(w, int(np.ceil(cx + m)) + 1), min(h, int(np.ceil(cy + m)) + 1))
 
 
 def _shrink(arr: np.ndarray, factor: int) -> np.ndarray:
@@ -399,18 +447,19 @@ def _read_loaded(photo: LoadedPhoto, name: str, inst: Instrument, calibration):
     if fr.circle is None:
         raise PhotoRejected(fr.reason)
     circle = fr.circle
-    rgb, rw = _working_rgb(photo, circle, base, rb)
+    work = _working_rgb(photo, circle, base, rb)
     del base
+    rgb, rw, origin, shape = work.rgb, work.reduce, work.origin, work.shape
     wcx, wcy, wr = (circle.cx - (rw - 1) / 2) / rw, (circle.cy - (rw - 1) / 2) / rw, circle.r / rw
     grey_w = cv2.cvtColor(rgb, cv2.COLOR_RGB2GRAY)
-    axis = axis_angle(grey_w, wcx, wcy, wr)
-    frame = make_frame(rgb, wcx, wcy, wr, axis.angle, rw)
+    axis = axis_angle(grey_w, wcx - origin[0], wcy - origin[1], wr)
+    frame = make_frame(rgb, wcx, wcy, wr, axis.angle, rw, origin=origin, shape=shape)
     dark, dark_abs = normalised(frame.grey, frame.inside, frame.radius, relative="both")
     col = _best_column(dark, dark_abs, frame, inst)
     if col is None or col.periodicity < MIN_PERIODICITY:
         # the gradient orientation can lock onto structure along the scale (a crescent's rim,
         # motion blur); graduations across the other way are worth one more look
-        turned = make_frame(rgb, wcx, wcy, wr, axis.angle + np.pi / 2, rw)
+        turned = make_frame(rgb, wcx, wcy, wr, axis.angle + np.pi / 2, rw, origin=origin, shape=shape)
         dark2, dark_abs2 = normalised(turned.grey, turned.inside, turned.radius, relative="both")
         col2 = _best_column(dark2, dark_abs2, turned, inst)
         # a second try at a found column must be well clear of the threshold: scikit-image's

@@ -80,6 +80,7 @@ from critline.photo.graduations import (
     normalised,
 )
 from critline.photo.load import LoadedPhoto, PhotoRejected, decode, srgb_to_linear
+from critline.photo.percentile import percentile
 from critline.readings import Edge, PhotoReading, Quality, rejected
 
 #: Precision of a spot reading, +- (common practice, no source); reported as the uncertainty.
@@ -157,12 +158,22 @@ def might_be_spot_view(frame: FieldFrame) -> bool:
         return False
     grey = cv2.GaussianBlur(frame.grey, (0, 0), max(1.0, 0.006 * r))
     vals = srgb_to_linear(grey[inner])
-    bg = float(np.median(vals))
-    top = float(np.percentile(vals, 99.99))
+    bg = _median(vals)
+    top = float(percentile(vals, 99.99))
     if top < 1.4 * max(bg, 1e-4) or top < 0.01:
         return False
     bright = float(np.count_nonzero(vals > bg + 0.5 * (top - bg))) / float(np.pi * r * r)
     return bright <= 0.16
+
+
+def _median(vals: np.ndarray) -> float:
+    """``numpy.median`` of a 1-D array by one partition (the upper middle value as the minimum above it)."""
+    n = vals.size
+    k = (n - 1) // 2
+    part = np.partition(vals, k)
+    if n % 2:
+        return float(part[k])
+    return float(np.mean(np.array([part[k], part[k + 1:].min()], dtype=vals.dtype)))
 
 
 def looks_like_spot_view(frame: FieldFrame) -> SpotDecision:

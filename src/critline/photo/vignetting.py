@@ -77,24 +77,25 @@ def _vote(pts, gdir, weight, half: float, rad: float):
     origin = half - 3.0 * rad
     nbin = int(np.ceil(6.0 * rad / bin_px)) + 1
     radii = np.arange(lo_r, hi_r + 1e-9, 0.05) * rad
-    # all trial radii at once: (radius, row bin, column bin) counts
+    # all trial radii at once: (row bin, column bin, radius) counts, the radii as an image's
+    # channels (the votes are summed in the same order whatever the layout)
     centres = pts[None, :, :] + radii[:, None, None] * gdir[None, :, :]
     ij = np.floor((centres - origin) / bin_px).astype(np.int64)
     # one unsigned comparison per coordinate keeps the votes inside the grid (negatives wrap high)
     keep = (ij[..., 0].astype(np.uint64) < nbin) & (ij[..., 1].astype(np.uint64) < nbin)
     k = np.broadcast_to(np.arange(len(radii))[:, None], keep.shape)[keep]
-    flat = (k * nbin + ij[..., 1][keep]) * nbin + ij[..., 0][keep]
+    flat = (ij[..., 1][keep] * nbin + ij[..., 0][keep]) * len(radii) + k
     w = np.broadcast_to(weight[None, :], keep.shape)[keep]
-    acc = np.bincount(flat, weights=w, minlength=len(radii) * nbin * nbin).reshape(len(radii), nbin, nbin)
-    # every trial radius smoothed in one call (radii as the image's channels)
-    acc = cv2.GaussianBlur(np.ascontiguousarray(acc.transpose(1, 2, 0), dtype=np.float32), (0, 0), 1.0)
+    acc = np.bincount(flat, weights=w, minlength=len(radii) * nbin * nbin).astype(np.float32)
+    # every trial radius smoothed in one call
+    acc = cv2.GaussianBlur(acc.reshape(nbin, nbin, len(radii)), (0, 0), 1.0)
     acc = acc.reshape(nbin, nbin, len(radii))
     ic = int((half - origin) / bin_px)
     ks = int(round(0.1 * rad / bin_px))
     # the stop's own circle (its ramp inside 0.88 radii is faint, but not nothing)
     like_stop = np.abs(radii - rad) < 0.1 * rad
     acc[max(0, ic - ks):ic + ks + 1, max(0, ic - ks):ic + ks + 1, like_stop] = 0
-    peak = acc.reshape(-1, len(radii)).max(axis=0)
+    peak = cv2.reduce(acc.reshape(-1, len(radii)), 0, cv2.REDUCE_MAX).ravel()  # each radius's highest vote
     n = int(np.argmax(peak))  # the first radius reaching the highest vote, as a scan would keep
     if not peak[n] > 0:
         return None, None
@@ -115,12 +116,12 @@ def find_crescent(frame: FieldFrame, seed: int = 0) -> Crescent | None:
     # the boundary is a broad ramp: about 100 pixels across the radius are plenty (an integer
     # shrink keeps OpenCV's fast area averaging)
     shrink = max(1, int(frame.radius // 100))
-    grey = frame.grey.astype(np.float32)
+    grey = np.asarray(frame.grey, np.float32)
     inside = frame.inside
     if shrink > 1:
         size = (grey.shape[1] // shrink, grey.shape[0] // shrink)
         grey = cv2.resize(grey[:size[1] * shrink, :size[0] * shrink], size, interpolation=cv2.INTER_AREA)
-        inside = cv2.resize(inside[:size[1] * shrink, :size[0] * shrink].astype(np.uint8) * 255, size,
+        inside = cv2.resize(inside[:size[1] * shrink, :size[0] * shrink].view(np.uint8) * np.uint8(255), size,
                             interpolation=cv2.INTER_AREA) > 250
     rad = float(frame.radius) / shrink
     half = (float(frame.half) + 0.5) / shrink - 0.5
