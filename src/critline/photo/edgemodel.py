@@ -89,6 +89,9 @@ class Window:
     grid_cos: np.ndarray  # sqrt(N**2 - grid**2), the prism side of the Fresnel equations
     interp_index: np.ndarray  # grid cell of each sample (linear interpolation)
     interp_frac: np.ndarray
+    #: censored samples bound the model from below at their own level (capped at the clip
+    #: level) and the censored fit is solved exactly (see :func:`solve_linear`)
+    exact_censoring: bool = False
 
     @property
     def tau_grid(self):
@@ -100,7 +103,7 @@ class Window:
 
 
 def make_window(values, brightness, weight, clipped, clip_level, lo, hi, sigma_lo, sigma_hi,
-                prism_index):
+                prism_index, exact_censoring=False):
     """Samples in ``[lo, hi]``, on a grid fine enough for ``sigma_lo`` and padded for ``sigma_hi``.
 
     A grid step of a third of the smallest blur (never finer than a sixth of the
@@ -128,7 +131,7 @@ def make_window(values, brightness, weight, clipped, clip_level, lo, hi, sigma_l
                   grid_sq=grid_sq,
                   # kept above zero so that the ratios stay 1 (not 0/0) beyond the prism index
                   grid_cos=np.sqrt(np.maximum(prism_index**2 - grid_sq, 1e-18)),
-                  interp_index=index, interp_frac=frac)
+                  interp_index=index, interp_frac=frac, exact_censoring=bool(exact_censoring))
 
 
 def _interp_weights(grid, at):
@@ -226,12 +229,28 @@ def design(window: Window, onsets, sigma, g, at=None):
     return basis
 
 
+def censor_levels(window: Window):
+    """Lower bound each censored (clipped) sample puts on the model.
+
+    The clip level; with ``exact_censoring`` each sample's own brightness capped at
+    the clip level (a sample on the rounded corner next to the clipped plateau is
+    the smoothed clipped profile, which lies below the smoothed unclipped one).
+    """
+    if window.exact_censoring:
+        return np.minimum(window.brightness, window.clip_level)
+    return window.clip_level
+
+
 def solve_linear(basis, window: Window, return_weights=False):
     """Weighted linear least squares for the linear parameters.
 
     Clipped samples are censored: they count, at the clip level, only while the
-    model would fall below it (a few active-set passes).
+    model would fall below it (a few active-set passes).  With
+    ``window.exact_censoring`` the censored problem is solved to its optimum by
+    :func:`censored_solve`.
     """
+    if window.exact_censoring and window.clipped.any():
+        return censored_solve(basis, window, return_weights)
     w = window.weight
     y = np.where(window.clipped, window.clip_level, window.brightness) if window.clipped.any() \
         else window.brightness
@@ -244,6 +263,52 @@ def solve_linear(basis, window: Window, return_weights=False):
                 break
             w = w_new
             coef = _weighted_solve(basis, y, w)
+    return (coef, w) if return_weights else coef
+
+
+def censored_solve(basis, window: Window, return_weights=False, max_passes=30):
+    """Censored (Tobit-style) weighted least squares for the linear parameters, solved exactly.
+
+    Minimises ``sum_u (w (y - m))**2 + sum_c (w max(b - m, 0))**2`` over the linear
+    parameters, ``m`` the model, ``u`` the unclipped samples, ``c`` the censored ones
+    with their bounds ``b`` (:func:`censor_levels`): a censored sample says only
+    that the model reaches at least its bound (Tobin, "Estimation of relationships
+    for limited dependent variables", Econometrica 26, 1958, with the Gaussian
+    likelihood's censored term replaced by the squared shortfall, as in censored
+    least squares).  The objective is convex and piecewise quadratic; it is solved
+    by active-set (semismooth Newton) passes with a backtracking step, started from
+    the fit without the censored samples, since over-exposure puts the bright level
+    well above the clip and most censored samples are then inactive.  (Started from
+    all censored samples counted at the clip level, a few plain passes stop with the
+    model hugging the clip: a flat top that pulls the onset low.)
+    """
+    levels = np.broadcast_to(censor_levels(window), window.brightness.shape)
+    clipped = window.clipped
+    y = np.where(clipped, levels, window.brightness)
+
+    def objective(coef):
+        model = basis @ coef
+        r = np.where(clipped, np.maximum(levels - model, 0.0), window.brightness - model) * window.weight
+        return float(r @ r)
+
+    w = np.where(clipped, 0.0, window.weight)
+    coef = _weighted_solve(basis, y, w)
+    best = objective(coef)
+    for _ in range(max_passes):
+        w_new = np.where(clipped & (basis @ coef >= levels), 0.0, window.weight)
+        if np.array_equal(w_new, w):
+            break
+        w = w_new
+        target = _weighted_solve(basis, y, w)
+        step = 1.0
+        while True:
+            trial = coef + step * (target - coef)
+            value = objective(trial)
+            if value <= best or step < 1e-3:
+                break
+            step *= 0.5
+        coef, best = trial, value
+    w = np.where(clipped & (basis @ coef >= levels), 0.0, window.weight)
     return (coef, w) if return_weights else coef
 
 
@@ -329,11 +394,16 @@ class _Problem:
             # with the top of the edge clipped the blur shape cannot be told from the
             # edge's own amplitude: keep the plain Gaussian blur there
             basis[:, 3 + count :] = 0.0
+            if win.exact_censoring:
+                # nor can a multiplicative trend of the edge terms (a + q tau) be told from
+                # the amplitude when the bright side is only bounded: it would bend the
+                # shoulder into a false shape
+                basis[:, 2 + count] = 0.0
         coef, weight = solve_linear(basis, win, return_weights=True)
         model = basis @ coef
         r = (win.brightness - model) * win.weight
         if self._clipped:
-            r = np.where(win.clipped, np.maximum(win.clip_level - model, 0.0) * win.weight, r)
+            r = np.where(win.clipped, np.maximum(censor_levels(win) - model, 0.0) * win.weight, r)
         self._key = key
         self.r, self.basis, self.coef, self.weight = r, basis, coef, weight
         self.spectrum, self.tones, self.omega2, self.transfer = spectrum, tones, omega2, transfer

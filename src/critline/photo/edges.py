@@ -177,6 +177,7 @@ class _Profile:
     scale: float
     outliers: int
     index: np.ndarray  # position of each kept sample in the caller's arrays
+    exact_censoring: bool = False  # see analyse_profile's ``censored``
 
 
 def _robust_sigma(x):
@@ -186,7 +187,7 @@ def _robust_sigma(x):
     return 1.4826 * float(np.median(np.abs(x - np.median(x))))
 
 
-def _prepare(values, brightness, noise, prism_index):
+def _prepare(values, brightness, noise, prism_index, censored=False):
     values = np.asarray(values, dtype=float).ravel()
     brightness = np.asarray(brightness, dtype=float).ravel()
     if values.shape != brightness.shape:
@@ -226,6 +227,8 @@ def _prepare(values, brightness, noise, prism_index):
         clip_level = np.inf
     else:
         clip_level = float(np.min(y[clipped]))
+        if censored:
+            clipped = _with_corner(clipped)
     # dust: isolated departures from a running median (a median of 5 keeps any
     # monotone run, so the edge itself is never touched)
     dev = y - median_filter(y, size=5, mode="nearest")
@@ -236,7 +239,28 @@ def _prepare(values, brightness, noise, prism_index):
     spacing = float(np.median(steps[steps > 0])) if np.any(steps > 0) else (v[-1] - v[0]) / v.size
     return _Profile(values=v, y=y, noise=s, weight=weight, clipped=clipped,
                     clip_level=clip_level, spacing=max(spacing, 1e-9), scale=scale,
-                    outliers=int(np.count_nonzero(outlier)), index=np.flatnonzero(ok)[order])
+                    outliers=int(np.count_nonzero(outlier)), index=np.flatnonzero(ok)[order],
+                    exact_censoring=bool(censored))
+
+
+#: Samples on each side of a clipped run taken as censored too in a censored analysis: the
+#: phone's demosaicing, noise reduction and JPEG, and the reader's own resampling, smooth the
+#: profile after the sensor clipped it and round the clipped plateau's corner over a few samples.
+CORNER_SAMPLES = 3
+
+
+def _with_corner(clipped, reach=CORNER_SAMPLES):
+    """The clipped mask widened by ``reach`` samples on each side of every clipped run.
+
+    Smoothing (a kernel of non-negative weights) after the clip can only lower a
+    sample, so a sample next to the clipped plateau is a lower bound of the
+    unclipped profile, not a measurement of it.
+    """
+    out = clipped.copy()
+    for k in range(1, reach + 1):
+        out[k:] |= clipped[:-k]
+        out[:-k] |= clipped[k:]
+    return out
 
 
 # ----------------------------------------------------------------- candidate steps
@@ -365,6 +389,8 @@ def _bic(fit: em.Fit):
 def _linear_se(fit: em.Fit, window: em.Window):
     """Standard errors of the linear parameters with the non-linear ones held."""
     basis = em.design(window, fit.onsets, fit.sigma, fit.g)
+    if window.exact_censoring and window.clipped.any():
+        basis[:, 2 + fit.count :] = 0.0  # the fit's own basis there (see edgemodel._Problem)
     w = np.where(window.clipped, 0.0, window.weight)
     a = basis * w[:, None]
     cov = np.linalg.pinv(a.T @ a) * fit.scale2
@@ -478,7 +504,7 @@ def _fit_group(p: _Profile, group, lo_limit, hi_limit, liquid_ri, prism_index):
         if s_lo >= s_hi:
             return None, flags  # samples far too coarse for an edge of this kind
         window = em.make_window(p.values, p.y, p.weight, p.clipped, p.clip_level, lo, hi,
-                                s_lo, s_hi, prism_index)
+                                s_lo, s_hi, prism_index, p.exact_censoring)
         if window.values.size < 12:
             return None, flags
         n0 = min(max(peak + 0.5 * s_hint, window.values[1]), window.values[-2])
@@ -556,7 +582,7 @@ def _fit_group(p: _Profile, group, lo_limit, hi_limit, liquid_ri, prism_index):
     window2 = window
     if proposals:
         window2 = em.make_window(p.values, p.y, p.weight, p.clipped, p.clip_level,
-                                 window.values[0], window.values[-1], s_lo2, s_hi2, prism_index)
+                                 window.values[0], window.values[-1], s_lo2, s_hi2, prism_index, p.exact_censoring)
     for onsets, liquid_top in proposals:
         onsets = [min(max(x, window.values[1]), window.values[-2]) for x in onsets]
         if onsets[1] - onsets[0] < 1e-5:
@@ -986,7 +1012,8 @@ def white_light_value(edge: EdgeFit, channels: dict) -> EdgeFit:
 # ----------------------------------------------------------------------- public
 
 
-def analyse_profile(values, brightness, noise, *, liquid_ri=None, prism_index=1.88, rgb=None, glass=None):
+def analyse_profile(values, brightness, noise, *, liquid_ri=None, prism_index=1.88, rgb=None, glass=None,
+                    censored=False):
     """Find the shadow edges of a brightness profile along the scale.
 
     Parameters
@@ -1009,6 +1036,11 @@ def analyse_profile(values, brightness, noise, *, liquid_ri=None, prism_index=1.
     glass : object with ``index(wavelength_nm)``, optional
         The prism glass's dispersion formula for the white-light reading
         (:func:`critline.photo.whitelight.prism_glass`); the default glass if None.
+    censored : bool
+        Fit clipped samples, and the few beside each clipped run (the rounded
+        corner), as lower bounds solved exactly (:func:`critline.photo.edgemodel.censored_solve`);
+        used for the white-light channel profiles.  Off, clipped samples count at
+        the clip level while the model falls below it (the monochromatic reading).
 
     Returns
     -------
@@ -1021,7 +1053,7 @@ def analyse_profile(values, brightness, noise, *, liquid_ri=None, prism_index=1.
     See the module docstring for the model, the fit and the uncertainty.
     """
     prism_index = float(prism_index)
-    p = _prepare(values, brightness, noise, prism_index)
+    p = _prepare(values, brightness, noise, prism_index, censored)
     if p is None:
         return ProfileAnalysis((), "no_edge", "unknown", ("unusable_profile",), {"samples": 0})
     cands = _candidates(p)
@@ -1103,6 +1135,9 @@ def analyse_profile(values, brightness, noise, *, liquid_ri=None, prism_index=1.
                 same_edge = {c: [min(v, key=lambda e: abs(e.value - main.value))] for c, v in per_channel.items()
                              if v and min(abs(e.value - main.value) for e in v) <= reach}
                 light = "white" if "white" in (light, _fringe_verdict(same_edge)) else light
+                if light == "unknown":
+                    # red and green clipped, blue not: their censored onsets against blue's own edge
+                    light = whitelight.clipped_fringe(per_channel, stones, main.value, reach)
             if light == "white":
                 flags.add("white_light")
                 edges = whitelight.reread_edges(edges, values, rgb, liquid_ri=liquid_ri,

@@ -52,13 +52,28 @@ shape, sharpening), which moves all channels together and is therefore added
 once, plus :data:`MODEL_FLOOR` for the Cauchy form.
 
 Over-exposure: a channel is taken as clipped when its bright field reaches
-:data:`FULL_SCALE` or sits at one exact level just above the onset; its onset
-is then biased low (the corner is hidden).  Clipped channels are left out when
-two unclipped ones remain; otherwise they take part with the whole hidden
-stretch :data:`CLIPPED_HIDDEN` in their uncertainty (half of it for an
-unclipped channel beside a clipped one).  On held-out synthesized photos this
-keeps the 2-sigma coverage near 95 % but not the error: clipped channels are
-the main source of the 95th-percentile error (bench/bench_white.py).
+:data:`FULL_SCALE` or sits at one exact level just above the onset.  Counted at
+the clip level while the model falls below it, the clipped samples of such a
+channel pulled the fitted edge into a flat top and its onset low (by 0.001-0.005
+on tuning photos 430000-430199, against the same scenes rendered 0.45 times as
+bright): the few active-set passes stopped with the model hugging the clip.  A
+channel clipped at full scale is therefore fitted as a censored least-squares
+problem solved exactly (:func:`critline.photo.edgemodel.censored_solve`): its
+clipped samples, and three samples beside each clipped run (the phone's
+processing and JPEG round the clipped corner after the sensor clipped it), only
+bound the model from below, and neither the blur-shape terms nor the
+multiplicative trend (which cannot be told from the hidden amplitude) are
+fitted.  The onset then comes from the rise below the clip.  What remains is
+smaller and specific to a channel's band: a clipped red channel still reads
+0.001-0.002 low on some tuning photos, its visible lower rise being made by the
+shorter wavelengths of its band, so clipped channels keep the whole hidden
+stretch :data:`CLIPPED_HIDDEN` in their uncertainty and are left out when two
+unclipped channels remain.  With red and green clipped and blue not, the light
+is told by :func:`clipped_fringe` (blue's own edge well below the censored red
+and green onsets).  A channel that was clipped and then scaled by the phone's
+white balance (a plateau below full scale) is still fitted the plain way: such a
+channel can take part in a reading in light that could not be told, and
+monochromatic readings are left as they were.
 
 The simple yellow-green boundary convention, computed for comparison: after
 white balance on the bright field (each channel scaled 0..1 between its level
@@ -305,7 +320,12 @@ def channel_edges(values, rgb, *, liquid_ri=None, prism_index=1.88):
         full_scale = top >= FULL_SCALE  # before the scaling below hides it
         channel = channel / top
         noise = max(float(np.median(np.abs(np.diff(channel)))) * 1.4826 / math.sqrt(2.0), 1e-5)
-        a = analyse_profile(values, channel, noise, liquid_ri=liquid_ri, prism_index=prism_index)
+        # a channel clipped at full scale is fitted with its clipped samples as lower bounds
+        # (censored least squares, solved exactly): the rise below the clip carries the onset.
+        # Such a channel is always marked clipped, so it takes no part in a reading in light
+        # that could not be told (monochromatic readings stay as they were)
+        a = analyse_profile(values, channel, noise, liquid_ri=liquid_ri, prism_index=prism_index,
+                            censored=full_scale)
         stones = tuple(_mark_clipped(e, values, channel, full_scale) for e in a.edges
                        if e.kind == "stone" and e.contrast >= 0.1)
         if stones:
@@ -371,6 +391,52 @@ def fringe_light(per_channel) -> str:
         if max(gaps) > FRINGE_MIN and all(g > 2 * math.hypot(_stat(blue), _stat(f)) for g, f in
                                           zip(gaps, others, strict=True)):
             return "white"
+    return "unknown"
+
+
+#: Significance (standard deviations) of an unclipped blue edge below the censored fits of clipped
+#: red and green channels for the fringe of :func:`clipped_fringe`.
+CLIPPED_FRINGE_SIGMA = 3.0
+
+
+def clipped_fringe(per_channel, luminance_stones, near, reach) -> str:
+    """``'white'`` when an unclipped blue edge lies well below clipped red and green, else ``'unknown'``.
+
+    Over-exposure by white light often clips red and green (the lamp is reddish, the
+    phone's white balance only partly corrects it) and leaves blue unclipped.  The
+    clipped channels, fitted as censored least squares (:func:`channel_edges`), are no
+    longer biased low by the clip (within their stated uncertainty, which carries the
+    hidden corner), so their onsets can be compared with blue's: a dense prism puts the
+    blue edge lowest (Snell's law, module notes), in monochromatic light all channels
+    share one onset.  The test: blue's lowest edge within ``reach`` of ``near``,
+    unclipped and not itself a stone edge of the luminance (``luminance_stones``; a
+    stone's other ray would be), lies below the weighted mean of the red and green
+    onsets (the nearest edge of each, both clipped at full scale) by more than
+    :data:`FRINGE_MIN` and :data:`CLIPPED_FRINGE_SIGMA` times the combined total
+    standard uncertainty.  The blue channel often shows a second step at the red and
+    green onsets (the sensor's blue filter passes some of their light); only its lowest
+    edge is blue's own.
+    """
+    if not all(c in per_channel for c in CHANNELS):
+        return "unknown"
+    nearest = {c: min(per_channel[c], key=lambda e: abs(e.value - near)) for c in ("red", "green")}
+    if any(abs(e.value - near) > reach or not e.figures.get("channel_clipped") for e in nearest.values()):
+        return "unknown"
+    blues = [e for e in per_channel["blue"] if abs(e.value - near) <= reach]
+    if not blues:
+        return "unknown"
+    blue = min(blues, key=lambda e: e.value)
+    if blue.figures.get("channel_clipped"):
+        return "unknown"
+    if any(abs(s.value - blue.value) <= max(2.0 * math.hypot(s.uncertainty, blue.uncertainty), 2.0 * s.width)
+           for s in luminance_stones):
+        return "unknown"  # the luminance shows this edge too: a stone edge, not blue's own
+    u = np.array([e.uncertainty for e in nearest.values()])
+    w = 1.0 / u**2
+    mean = float(np.sum(w * [e.value for e in nearest.values()]) / w.sum())
+    gap = mean - blue.value
+    if gap > max(FRINGE_MIN, CLIPPED_FRINGE_SIGMA * math.hypot(1.0 / math.sqrt(w.sum()), blue.uncertainty)):
+        return "white"
     return "unknown"
 
 
