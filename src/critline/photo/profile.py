@@ -94,6 +94,17 @@ def _fill(prof: np.ndarray) -> np.ndarray:
     return np.interp(np.arange(len(prof)), idx, prof[idx])
 
 
+def _theil_sen(y: np.ndarray, x: np.ndarray) -> tuple[float, float]:
+    """Theil-Sen line through points: the median of the pairwise slopes (Sen 1968), and the
+    intercept ``median(y) - slope * median(x)`` (as ``scipy.stats.theilslopes`` gives them,
+    without its confidence interval)."""
+    x, y = np.asarray(x, float), np.asarray(y, float)
+    dx = x[:, None] - x
+    dy = y[:, None] - y
+    slope = np.median(dy[dx > 0] / dx[dx > 0])
+    return slope, np.median(y) - slope * np.median(x)
+
+
 def _edge_tilt(lum: np.ndarray, cols: np.ndarray, ok: np.ndarray, period: float,
                interior: np.ndarray | None = None) -> tuple[float, float]:
     """Slope (rows per column) of the main brightness step across the columns.
@@ -106,8 +117,6 @@ def _edge_tilt(lum: np.ndarray, cols: np.ndarray, ok: np.ndarray, period: float,
     returns the standard uncertainty (rows) of the step's row at the
     reference column from the scatter of the blocks about that line.
     """
-    from scipy.stats import theilslopes
-
     sig = max(1.0, period / 2)
     masked = np.where(ok, lum, np.nan)
     with np.errstate(all="ignore"):
@@ -177,7 +186,7 @@ def _edge_tilt(lum: np.ndarray, cols: np.ndarray, ok: np.ndarray, period: float,
     if len(shifts) < 4:
         return 0.0, 0.0
     sh, wh = np.array(shifts), np.array(where)
-    slope, intercept = theilslopes(sh, wh)[:2]
+    slope, intercept = _theil_sen(sh, wh)
     resid = sh - (intercept + slope * wh)
     scatter = 1.4826 * float(np.median(np.abs(resid))) / np.sqrt(len(sh))
     return float(np.clip(slope, -0.2, 0.2)), scatter

@@ -64,6 +64,10 @@ class Crescent:
     share: float
 
 
+#: Trial radii whose votes are counted together (see :func:`_vote`).
+_RADII_AT_ONCE = 8
+
+
 def _vote(pts, gdir, weight, half: float, rad: float):
     """Centre and radius of the circle whose inside is brighter, by gradient-direction voting.
 
@@ -77,19 +81,25 @@ def _vote(pts, gdir, weight, half: float, rad: float):
     origin = half - 3.0 * rad
     nbin = int(np.ceil(6.0 * rad / bin_px)) + 1
     radii = np.arange(lo_r, hi_r + 1e-9, 0.05) * rad
-    # all trial radii at once: (row bin, column bin, radius) counts, the radii as an image's
-    # channels (the votes are summed in the same order whatever the layout)
+    # (row bin, column bin, radius) counts, the radii as an image's channels (each bin sums its
+    # votes in the same order whatever the layout)
     centres = pts[None, :, :] + radii[:, None, None] * gdir[None, :, :]
     ij = np.floor((centres - origin) / bin_px).astype(np.int64)
     # one unsigned comparison per coordinate keeps the votes inside the grid (negatives wrap high)
     keep = (ij[..., 0].astype(np.uint64) < nbin) & (ij[..., 1].astype(np.uint64) < nbin)
-    k = np.broadcast_to(np.arange(len(radii))[:, None], keep.shape)[keep]
-    flat = (ij[..., 1][keep] * nbin + ij[..., 0][keep]) * len(radii) + k
-    w = np.broadcast_to(weight[None, :], keep.shape)[keep]
-    acc = np.bincount(flat, weights=w, minlength=len(radii) * nbin * nbin).astype(np.float32)
+    nr = len(radii)
+    acc = np.empty((nbin, nbin, nr), np.float32)
+    # counted a few radii at a time: the double-precision counts of all radii would be the
+    # reader's largest array (10 MB)
+    for k0 in range(0, nr, _RADII_AT_ONCE):
+        k1 = min(nr, k0 + _RADII_AT_ONCE)
+        sel = keep[k0:k1]
+        k = np.broadcast_to(np.arange(k1 - k0)[:, None], sel.shape)[sel]
+        flat = (ij[k0:k1, :, 1][sel] * nbin + ij[k0:k1, :, 0][sel]) * (k1 - k0) + k
+        w = np.broadcast_to(weight[None, :], sel.shape)[sel]
+        acc[..., k0:k1] = np.bincount(flat, weights=w, minlength=(k1 - k0) * nbin * nbin).reshape(nbin, nbin, -1)
     # every trial radius smoothed in one call
-    acc = cv2.GaussianBlur(acc.reshape(nbin, nbin, len(radii)), (0, 0), 1.0)
-    acc = acc.reshape(nbin, nbin, len(radii))
+    cv2.GaussianBlur(acc, (0, 0), 1.0, dst=acc)
     ic = int((half - origin) / bin_px)
     ks = int(round(0.1 * rad / bin_px))
     # the stop's own circle (its ramp inside 0.88 radii is faint, but not nothing)
@@ -256,7 +266,9 @@ def crescent_transmission(lum: np.ndarray, rows: np.ndarray, cols: np.ndarray, c
         ref = np.full(lum.shape[0], np.nan)
         has = count >= 3
         if has.any():
-            ref[has] = np.nanmedian(lit_vals[has], axis=1)
+            from critline.photo.profile import nan_median_rows  # numpy's nanmedian by one sort
+
+            ref[has] = nan_median_rows(lit_vals[has])
     top = float(np.nanpercentile(ref, 95)) if np.isfinite(ref).any() else np.nan
     # rows bright enough to measure a ratio: the shadow's dark part would give noise
     bright = np.isfinite(ref) & (ref > 0.3 * top) if np.isfinite(top) else np.zeros_like(has)
