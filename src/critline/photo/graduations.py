@@ -436,6 +436,12 @@ def find_graduations(frame: FieldFrame, instrument: Instrument, dark: np.ndarray
     offset, margin, phase_margin, details = _identify(k, pos, lengths, coef_rel, profile,
                                                       local_noise, frame, col, instrument)
     if margin < 1.0:
+        # no values to give either way; the reason should say whether the lines made a scale at all
+        _, _, res_rel = _fit(k, pos, deg)
+        scatter_rel = float(np.sqrt(np.mean(res_rel ** 2))) / col.period
+        if scatter_rel > MAX_LINE_SCATTER:
+            raise GraduationsNotFound(
+                f"graduations not found (the lines do not follow a scale: scatter {scatter_rel:.2f} of a spacing)")
         raise GraduationsNotFound(
             f"graduations found but their values are ambiguous (identification margin {margin:.1f})")
     k = k + offset
