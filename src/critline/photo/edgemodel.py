@@ -42,7 +42,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy.fft import irfft, next_fast_len, rfft, rfftfreq
+from scipy.fft import next_fast_len, rfftfreq
 from scipy.optimize import least_squares
 
 #: Bounds of the tone exponent ``g``.  Linear light gives g near 1; the range
@@ -163,11 +163,15 @@ def _dark(window: Window, n, g, with_tone=False, out=None, tone=None):
     rs = ((a - b) / (a + b)) ** 2
     rp = ((n2 * a - big2 * b) / (n2 * a + big2 * b)) ** 2
     r = 0.5 * (rs + rp)
+    if with_tone:
+        # one logarithm for both the power and its derivative (r ** g = exp(g log r))
+        log_r = np.log(np.maximum(r, 1e-300))
+        rg = np.exp(g * log_r) if g != 1.0 else r
+        out[:stop] = 1.0 - rg
+        tone[:stop] = -g * rg * log_r
+        return out, tone
     rg = r**g if g != 1.0 else r
     out[:stop] = 1.0 - rg
-    if with_tone:
-        tone[:stop] = -g * rg * np.log(np.maximum(r, 1e-300))
-        return out, tone
     return out
 
 
@@ -180,13 +184,13 @@ def _blur(window: Window, f, sigma, shape_rows=0):
     """
     omega2 = (2.0 * np.pi * sigma * window.freq) ** 2
     transfer = np.exp(-0.5 * omega2)
-    spectrum = rfft(f, n=window.fft_len, axis=-1)
+    spectrum = np.fft.rfft(f, n=window.fft_len, axis=-1)
     if shape_rows:
         spectrum = np.concatenate([spectrum * transfer,
                                    spectrum[:shape_rows] * (transfer * omega2 * omega2)])
     else:
         spectrum = spectrum * transfer
-    return irfft(spectrum, n=window.fft_len, axis=-1)[..., : window.grid.size]
+    return np.fft.irfft(spectrum, n=window.fft_len, axis=-1)[..., : window.grid.size]
 
 
 def n_linear(count):
@@ -376,10 +380,10 @@ class _Problem:
         for k, n in enumerate(onsets):
             _dark(win, n, g, with_tone=True, out=rows[k], tone=tones[k])
         rows[count] = self._tau_grid * rows[:count].sum(axis=0)
-        spectrum = rfft(rows, n=win.fft_len, axis=-1)
+        spectrum = np.fft.rfft(rows, n=win.fft_len, axis=-1)
         omega2 = (2.0 * np.pi * sigma * win.freq) ** 2
         transfer = np.exp(-0.5 * omega2)
-        blurred = irfft(np.concatenate([spectrum * transfer,
+        blurred = np.fft.irfft(np.concatenate([spectrum * transfer,
                                         spectrum[:count] * (transfer * omega2 * omega2)]),
                         n=win.fft_len, axis=-1)[:, : win.grid.size]
         at = blurred[:, win.interp_index] * self._rest + blurred[:, self._index1] * win.interp_frac
@@ -430,9 +434,9 @@ class _Problem:
         # log g
         tone_a = amps @ self.tones + q * self._tau_grid * self.tones.sum(axis=0)
         tone_s = shape @ self.tones
-        spec_tone = rfft(np.stack([tone_a, tone_s]), n=win.fft_len, axis=-1)
+        spec_tone = np.fft.rfft(np.stack([tone_a, tone_s]), n=win.fft_len, axis=-1)
         derivs.append(-(t * spec_tone[0] + t * w2 * w2 * spec_tone[1]))
-        dm_grid = irfft(np.stack(derivs), n=win.fft_len, axis=-1)[:, : win.grid.size]
+        dm_grid = np.fft.irfft(np.stack(derivs), n=win.fft_len, axis=-1)[:, : win.grid.size]
         dm = dm_grid[:, win.interp_index] * self._rest + dm_grid[:, self._index1] * win.interp_frac  # (K + 2, m)
         # cumulative onsets: theta_j moves every onset from j up
         dm[:count] = np.cumsum(dm[:count][::-1], axis=0)[::-1]

@@ -147,10 +147,13 @@ def normalised(grey: np.ndarray, inside: np.ndarray, radius: float, relative: bo
     den = cv2.GaussianBlur(cv2.resize(w, small, interpolation=cv2.INTER_AREA), (0, 0), sigma / f)
     local = cv2.resize(num / np.maximum(den, 1e-3), (n1, n0), interpolation=cv2.INTER_LINEAR)
     if relative == "both":
-        rel = (1.0 - grey / np.maximum(local, 1e-3)).astype(np.float32)
-        ab = (local - grey).astype(np.float32)
-        rel[~inside] = 0.0
-        ab[~inside] = 0.0
+        # in place, one pass each (both are float32 already for a float32 frame)
+        rel = np.divide(grey, np.maximum(local, 1e-3), dtype=np.float32)
+        np.subtract(np.float32(1.0), rel, out=rel)
+        ab = np.subtract(local, grey, dtype=np.float32)
+        outside = ~inside
+        np.copyto(rel, 0.0, where=outside)
+        np.copyto(ab, 0.0, where=outside)
         return rel, ab
     out = 1.0 - grey / np.maximum(local, 1e-3) if relative else local - grey
     out[~inside] = 0.0
@@ -570,10 +573,17 @@ def _identify(k, pos, lengths, coef, profile, noise, frame, col, instrument):
     phase_period = math.lcm(int(le), int(me)) if le and me else int(le or me or 0)
     whole = bool(np.all(np.mod(k, 1) == 0))
     by_phase: dict[int, float] = {}
-    for c in range(-int(k.max()) - 2, count + 2 - int(k.min())):
-        absm = m + c
-        on = (absm >= 0) & (absm <= count - 1)
-        tmpl = float(np.sum(np.where(on, evidence, -evidence)))
+    offsets = np.arange(-int(k.max()) - 2, count + 2 - int(k.min()))
+    # template score of every offset at once: the evidence at indices that land on the scale
+    # (a run of m, which is consecutive) counts for it, the rest against: 2 * on - total
+    cum = np.concatenate([[0.0], np.cumsum(evidence)])
+    j_lo = np.clip(-offsets - m[0], 0, len(m))
+    j_hi = np.clip(count - offsets - m[0], 0, len(m))
+    tmpl_all = 2.0 * np.where(j_hi > j_lo, cum[j_hi] - cum[np.minimum(j_lo, j_hi)], 0.0) - cum[-1]
+    # weak prior: an eyepiece centres its scale in the field stop (a few tenths of a radius)
+    mid_rows = np.polynomial.polynomial.polyval((count - 1) / 2 - offsets, coef)
+    centring_all = np.minimum(((mid_rows - frame.half) / (0.15 * frame.radius)) ** 2, 25.0)
+    for c, tmpl, centring in zip(offsets.tolist(), tmpl_all.tolist(), centring_all.tolist(), strict=True):
         # the pattern over all lines found (it is periodic; the range is the template's business)
         absolute = k[bright_lines] + c + base
         key = (c + base) % phase_period if phase_period and whole else c
@@ -582,10 +592,7 @@ def _identify(k, pos, lengths, coef, profile, noise, frame, col, instrument):
         corr = by_phase[key]
         pattern[c] = corr
         templates[c] = tmpl
-        # weak prior: an eyepiece centres its scale in the field stop (a few tenths of a radius)
-        mid_row = np.polynomial.polynomial.polyval((count - 1) / 2 - c, coef)
-        centring = ((mid_row - frame.half) / (0.15 * frame.radius)) ** 2
-        scores[c] = tmpl + 20.0 * corr - min(centring, 25.0)
+        scores[c] = tmpl + 20.0 * corr - centring
     order = sorted(scores, key=scores.get, reverse=True)
     best = order[0]
     margin = scores[best] - scores[order[1]] if len(order) > 1 else np.inf
