@@ -300,11 +300,14 @@ def _assign(pos: np.ndarray, period: float):
     return k
 
 
-def _fit(k, pos, deg, weights=None):
+def _fit(k, pos, deg, weights=None, want_cov=True):
+    """Polynomial index -> row by least squares; its covariance (None unless ``want_cov``) and residuals."""
     x = np.vander(k.astype(float), deg + 1, increasing=True)
     w = np.ones(len(k)) if weights is None else weights
     coef, *_ = np.linalg.lstsq(x * w[:, None], pos * w, rcond=None)
     res = pos - x @ coef
+    if not want_cov:  # the passes whose covariance is never read skip its pseudo-inverse
+        return coef, None, res
     dof = max(1, len(k) - deg - 1)
     s2 = float(np.sum((w * res) ** 2) / dof)
     cov = np.linalg.pinv((x * w[:, None]).T @ (x * w[:, None])) * s2
@@ -317,7 +320,7 @@ def _robust_map(pos, k, period, deg):
     for _ in range(4):
         if keep.sum() < deg + 3:
             break
-        coef, cov, res = _fit(k[keep], pos[keep], deg)
+        coef, _, res = _fit(k[keep], pos[keep], deg, want_cov=False)
         # re-index every detection against the model: nearest index
         grid = np.arange(k.min() - 5, k.max() + 6)
         rows = np.polynomial.polynomial.polyval(grid, coef)
@@ -332,7 +335,7 @@ def _robust_map(pos, k, period, deg):
         dup = np.zeros(len(k), bool)
         dup[order[1:]] = k[order[1:]] == k[order[:-1]]
         keep &= ~dup
-    coef, cov, res = _fit(k[keep], pos[keep], deg)
+    coef, cov, res = _fit(k[keep], pos[keep], deg, want_cov=False)  # the caller refits for the covariance
     return k, keep, coef, cov, res
 
 
@@ -414,7 +417,7 @@ def find_graduations(frame: FieldFrame, instrument: Instrument, dark: np.ndarray
     good = sizes[seg] >= 4
     if good.sum() >= 6:
         pos, k, prom = pos[good], k[good], prom[good]
-        coef, cov, _ = _fit(k, pos, deg)
+        coef, _, _ = _fit(k, pos, deg, want_cov=False)
     max_len = int(max(4 * (col.v_hi - col.v_lo + 1), 0.1 * frame.radius))
     lengths, _, _ = _lengths(dark, pos, col, max_len, _on_shadow_edge(frame, col, pos))
     flags = []
@@ -435,12 +438,12 @@ def find_graduations(frame: FieldFrame, instrument: Instrument, dark: np.ndarray
     k = k - k.min()
     if not values_down:
         local_noise = local_noise[::-1]
-    coef_rel, _, _ = _fit(k, pos, deg)
+    coef_rel, _, _ = _fit(k, pos, deg, want_cov=False)
     offset, margin, phase_margin, details = _identify(k, pos, lengths, coef_rel, profile,
                                                       local_noise, frame, col, instrument)
     if margin < 1.0:
         # no values to give either way; the reason should say whether the lines made a scale at all
-        _, _, res_rel = _fit(k, pos, deg)
+        _, _, res_rel = _fit(k, pos, deg, want_cov=False)
         scatter_rel = float(np.sqrt(np.mean(res_rel ** 2))) / col.period
         if scatter_rel > MAX_LINE_SCATTER:
             raise GraduationsNotFound(
