@@ -72,7 +72,8 @@ def _luminance(lin: np.ndarray) -> np.ndarray:
 
 def nan_median_rows(a: np.ndarray) -> np.ndarray:
     """Median of each row ignoring NaN (sort-based; NaN sort last).  All-NaN rows give NaN."""
-    a = np.sort(a, axis=1)
+    a = np.array(a, dtype=a.dtype, order="C")  # the sort's own copy, laid out row by row
+    a.sort(axis=1)
     count = np.isfinite(a).sum(axis=1)
     lo = np.clip((count - 1) // 2, 0, a.shape[1] - 1)
     hi = np.clip(count // 2, 0, a.shape[1] - 1)
@@ -159,7 +160,7 @@ def _edge_tilt(lum: np.ndarray, cols: np.ndarray, ok: np.ndarray, period: float,
     for b in blocks:
         if len(b) < 3:
             continue
-        sub = masked[:, b]
+        sub = masked.take(b, axis=1)
         seen_rows = np.isfinite(sub).any(axis=1)
         before = np.flatnonzero(seen_rows[:need_lo + 1])
         after = np.flatnonzero(seen_rows[need_hi - 1:])
@@ -222,12 +223,14 @@ def brightness_profile(frame: FieldFrame, v_lo: int, v_hi: int, exclude: int, pe
         cand = np.flatnonzero(np.abs(v) < 0.9 * frame.radius)
     if len(cand) > max_columns:
         cand = cand[np.linspace(0, len(cand) - 1, max_columns).astype(int)]
+    # ``take`` keeps the columns' rows contiguous (``a[:, cand]`` lays the picked columns out
+    # column-major, and every row median below then strides across the whole array)
     if frame.stored is not None:  # a table look-up of the stored integers: the same values
-        lin = _LINEAR_U8[frame.stored[:, cand]]  # (n, m, 3)
+        lin = np.take(_LINEAR_U8, frame.stored.take(cand, axis=1))  # (n, m, 3)
     else:
-        lin = srgb_to_linear(frame.rgb[:, cand])
+        lin = srgb_to_linear(frame.rgb.take(cand, axis=1))
     lum = _luminance(lin)
-    ok = frame.inside[:, cand] & (np.abs(v[cand])[None, :] < 0.9 * chord[:, None])
+    ok = frame.inside.take(cand, axis=1) & (np.abs(v[cand])[None, :] < 0.9 * chord[:, None])
     if crescent is not None:
         trans = crescent_transmission(lum, np.arange(n, dtype=float), cand.astype(float), crescent,
                                       frame.radius, ok)
