@@ -427,7 +427,8 @@ def refine_stop(rgb: np.ndarray, cx: float, cy: float, r: float, n_rays: int = 3
     if full.sum() < 30:
         return None
     samp = cv2.remap(rgb, mx, my, interpolation=cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
-    samp = samp.astype(np.float32) / np.float32(scale)
+    samp = samp.astype(np.float32)
+    samp /= np.float32(scale)  # in place: one pass
     if samp.ndim == 3:
         samp = cv2.cvtColor(samp, cv2.COLOR_RGB2GRAY)  # Rec. 601 luma (0.299, 0.587, 0.114)
     lin = srgb_to_linear(samp)

@@ -168,7 +168,9 @@ def axis_angle(grey: np.ndarray, cx: float, cy: float, r: float) -> AxisEstimate
     y0, y1 = max(0, int(cy - r)), min(h, int(cy + r) + 1)
     crop = grey[y0:y1, x0:x1]
     if crop.dtype != np.float32:
-        crop = crop.astype(np.float32) / (65535.0 if crop.dtype == np.uint16 else 255.0)
+        scale = 65535.0 if crop.dtype == np.uint16 else 255.0
+        crop = crop.astype(np.float32)
+        crop /= scale
     # lines a few pixels wide are enough: work on at most ~500 px across the field
     shrink = max(1, int(r // 250))
     if shrink > 1:
@@ -186,16 +188,14 @@ def axis_angle(grey: np.ndarray, cx: float, cy: float, r: float) -> AxisEstimate
     gy = cv2.Sobel(hp, cv2.CV_32F, 0, 1, ksize=3)
     yy, xx = np.ogrid[y0:y1, x0:x1]
     inner = ((xx - cx) ** 2 + (yy - cy) ** 2) < (0.85 * r) ** 2
-    energy = gx * gx + gy * gy
-    # flat indices of the interior, taken once (in row order, as boolean indexing gives them)
-    at = np.flatnonzero(inner)
-    e_in = energy.ravel()[at]
-    if not at.size or not np.any(e_in > 0):
+    # the gradients of the interior only (in row order), and their energy there
+    gx_in, gy_in = gx[inner], gy[inner]
+    e_in = gx_in * gx_in + gy_in * gy_in
+    if not e_in.size or not np.any(e_in > 0):
         return AxisEstimate(0.0, 0.0)  # no field interior in the photo (or a flat one): no direction
     # the strongest fifth of the gradients carries nearly all the weight: use only those
     strong = e_in >= percentile(e_in, 80)
-    at = at[strong]
-    gxs, gys = gx.ravel()[at], gy.ravel()[at]
+    gxs, gys = gx_in[strong], gy_in[strong]
     wgt = e_in[strong]
     doubled = np.arctan2(2 * gxs * gys, gxs ** 2 - gys ** 2)
     # orientation histogram (doubled angle): the peak, not the mean, so that other structure
@@ -293,7 +293,8 @@ def make_frame(rgb: np.ndarray, cx: float, cy: float, r: float, angle: float, re
                             borderMode=cv2.BORDER_CONSTANT, borderValue=(0, 0, 0))
     stored = warped if warped.dtype == np.uint8 else None
     if warped.dtype != np.float32:
-        warped = warped.astype(np.float32) * np.float32(1.0 / (65535.0 if rgb.dtype == np.uint16 else 255.0))
+        warped = warped.astype(np.float32)
+        warped *= np.float32(1.0 / (65535.0 if rgb.dtype == np.uint16 else 255.0))  # in place: one pass
     h, w = rgb.shape[:2]
     # Rec. 601 luma (OpenCV's weights 0.299, 0.587, 0.114)
     grey = cv2.cvtColor(warped, cv2.COLOR_RGB2GRAY)
