@@ -275,4 +275,6 @@ def test_no_scale_read_from_noise_when_none_is_printed(tmp_path, seed):
     path = tmp_path / f"blank{seed}.jpg"
     write_photo(path, scene, seed)
     r = read_photo(path)
-    assert r.status == "rejected" and r.reason.startswith("graduations not found"), (r.status, r.reason)
+    # rejected with no values; the reason may be "not found" (lines off a smooth map) or "ambiguous"
+    # (lines on a smooth map whose values nothing identifies), both about the graduations
+    assert r.status == "rejected" and not r.edges and r.reason.startswith("graduations"), (r.status, r.reason)
