@@ -108,7 +108,7 @@ FLOOR_CLIPPED_FRACTION = 0.5
 CLIPPED_CORNER = 0.004
 #: A pair fit started within this many blur widths (of the lone term) of where an earlier pair
 #: fit ended is not run again.
-DUPLICATE_START = 0.1
+DUPLICATE_START = 0.25
 #: Blur (scale units) above which a reading is flagged 'blurred'.
 BLURRED_SIGMA = 0.0025
 #: Contrast below which a stone edge is flagged 'low_contrast'.
